@@ -34,7 +34,10 @@ class PI:
         self.saturated = 0
 
     def step(self, err: float, dt_s: float, lo: float, hi: float, ff: float = 0.0,
-             gain: float = 1.0) -> float:
+             gain: float = 1.0, int_hi: float | None = None, hold: bool = False) -> float:
+        """int_hi: a higher bound for ff + integral than hi, for a limit that moves up on its
+        own (a soft-start ceiling): the integral is not dragged down by it.
+        hold: freeze the integral this frame (the loop below cannot act, e.g. a changeover)."""
         kp = gain * self.kp
         integ = self.integral
         u = ff + kp * err + integ
@@ -44,11 +47,12 @@ class PI:
             sat = -1
         else:
             sat = 0
-        if not ((sat == 1 and err > 0.0) or (sat == -1 and err < 0.0)):
+        if not hold and not ((sat == 1 and err > 0.0) or (sat == -1 and err < 0.0)):
             integ += kp * err * dt_s / self.ti_s
         # keep ff + integral inside the limits: no stored windup when the limits move
-        if integ > hi - ff:
-            integ = hi - ff
+        top = hi if int_hi is None else int_hi
+        if integ > top - ff:
+            integ = top - ff
         elif integ < lo - ff:
             integ = lo - ff
         self.integral = integ

@@ -164,6 +164,7 @@ class DriveController:
         _, self._icrit_tab = firing.critical_current_table(self._vll_nom, self._f_mains,
                                                            g("motor.la_H"), 5.0)
 
+        self._v_top_pu = math.cos(math.radians(self._a_min))
         self._ramp = Ramp()
         self._speed_pi = PI(g("speed_loop.kp_A_per_rpm"), g("speed_loop.ti_s"))
         self._cur_pi = PI(g("current_loop.kp_V_per_A"), g("current_loop.ti_s"))
@@ -197,6 +198,7 @@ class DriveController:
         self._v_ref = 0.0
         self._alpha_deg = self._a_max
         self._alpha_floor = self._a_max
+        self._floor_limited = False
         self._dcm = False
         self._if_ref = 0.0
         self._vf_ref = 0.0
@@ -414,7 +416,10 @@ class DriveController:
                 phi_s = phi if phi > self._min_flux_speed else self._min_flux_speed
                 if self._series:
                     phi_s = 1.0  # series flux follows the current itself; no scheduling
-                i_ref = self._speed_pi.step(w - n, dt_s, lo, hi, 0.0, 1.0 / phi_s)
+                # no torque while the bridges change over or a bridge soft-starts: freeze the
+                # speed integrator then, or it winds up and the drive hunts across zero current
+                hold = co.phase != CONDUCT or self._floor_limited
+                i_ref = self._speed_pi.step(w - n, dt_s, lo, hi, 0.0, 1.0 / phi_s, None, hold)
         else:
             i_ref = 0.0
             self._ramp.reset(0.0)
@@ -471,8 +476,9 @@ class DriveController:
                     if self._dcm and i_crit > 0.0:
                         r = ia_abs / i_crit
                         gain = 1.0 + (self._dcm_gain - 1.0) * (1.0 - (r if r < 1.0 else 1.0))
-                v_b = self._cur_pi.step(i_b - ia_b, dt_s, v_b, v_hi, ff, gain)
+                v_b = self._cur_pi.step(i_b - ia_b, dt_s, v_b, v_hi, ff, gain, self._v_top_pu * v_do)
                 alpha = firing.bridge_alpha_deg(v_b, v_do, a_top, a_max)
+                self._floor_limited = floor > self._a_min and alpha <= floor + 1e-6
                 fl = self._alpha_floor - self._release_rate * dt_s
                 self._alpha_floor = fl if fl > self._a_min else self._a_min
             else:
