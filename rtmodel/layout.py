@@ -113,8 +113,9 @@ X_ANGLE_RAD = _block("X_", ["ANGLE_RAD"])  # shaft angle, unwrapped
 X_TEMP_ARM_C = _block("X_", ["TEMP_ARM_C"])
 X_TIME_S = _block("X_", ["TIME_S"])
 X_MAINS_ANGLE_RAD = _block("X_", ["MAINS_ANGLE_RAD"])  # phase a voltage angle, wrapped [0, 2pi)
-# thyristor currents (A, >= 0 unless shorted), one per thyristor index k
-X_THY_I0 = _block("X_", [f"THY_I{k}" for k in range(N_THY)])
+# mains line currents into the bridge, phases a, b, c (A); the phase's conducting thyristor
+# carries |i|: upper one when i > 0, lower one when i < 0 (a shorted one may carry either sign)
+X_PH_I0 = _block("X_", ["PH_IA", "PH_IB", "PH_IC"])
 # 1.0 while thyristor k conducts
 X_THY_ON0 = _block("X_", [f"THY_ON{k}" for k in range(N_THY)])
 # time since thyristor k stopped conducting (s), for the turn-off (recovery) time check
@@ -131,7 +132,10 @@ X_PULSE_T_S = _block("X_", ["PULSE_T_S"])  # time since last pulse (s)
 X_PULSE_VAVG_V = _block("X_", ["PULSE_VAVG_V"])  # mean terminal voltage over the last pulse
 X_FIELD_CONV_ON = _block("X_", ["FIELD_CONV_ON"])  # field half bridge: 1 while a thyristor conducts
 X_FIELD_AVG_V = _block("X_", ["FIELD_AVG_V"])  # averaged field bridge: voltage latched at half cycle
-X_LAST_NAT_INDEX = _block("X_", ["LAST_NAT_INDEX"])  # last natural commutation instant passed (0..5)
+X_LAST_FIRED_UP = _block("X_", ["LAST_FIRED_UP"])  # index of the last upper thyristor turned on, -1 none
+X_LAST_FIRED_LOW = _block("X_", ["LAST_FIRED_LOW"])  # index of the last lower thyristor turned on
+X_LATCHED_ALPHA_RAD = _block("X_", ["LATCHED_ALPHA_RAD"])  # firing angle latched at the last instant
+X_FIELD_FIRE_AT = _block("X_", ["FIELD_FIRE_AT"])  # field bridge: angle of next firing, -1 none
 X_VT_V = _block("X_", ["VT_V"])  # last terminal voltage (kept for forward-bias checks)
 STATE_NAMES = tuple(_names)
 N_STATE = len(_names)

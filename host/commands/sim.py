@@ -1,0 +1,90 @@
+"""`dcrig sim`: offline transient of a machine (and converter) with input steps and ramps."""
+
+from __future__ import annotations
+
+import argparse
+import math
+
+import numpy as np
+
+from rtmodel import layout as L
+
+from ..errors import ConfigError
+from . import add_config_args
+
+EXAMPLE = """examples:
+  dcrig sim configs/machines/kestrel_f3_stand.toml --t-end 4 --dt 20e-6 \\
+      --step load_torque_Nm@2.5=6000 --out f3.csv --plot f3.png
+  dcrig sim configs/machines/kestrel_f3_stand.toml --converter configs/converters/kestrel_f3_bridge.toml \\
+      --t-end 3 --set-input firing_angle_deg=150 --ramp firing_angle_deg@0.2:2.5=150:20 --out ramp.csv
+
+inputs (NAME for --step/--ramp/--set-input): see `host/sim.py` INPUTS; units are in the names.
+"""
+
+
+def add_subparser(sub):
+    p = sub.add_parser("sim", help="offline transient simulation to CSV (and PNG)",
+                       description="Run the compiled model offline from standstill with step and ramp inputs; "
+                       "write a CSV with unit-suffixed columns and optionally a plot.",
+                       epilog=EXAMPLE, formatter_class=argparse.RawDescriptionHelpFormatter)
+    add_config_args(p)
+    p.add_argument("--t-end", type=float, required=True, metavar="S", help="simulated time, s")
+    p.add_argument("--dt", type=float, metavar="S", help="model step, s (overrides sim.dt_us)")
+    p.add_argument("--sample", type=float, metavar="S", help="output sample interval, s (default: the step when a converter is given, else 1 ms)")
+    p.add_argument("--set-input", action="append", default=[], metavar="NAME=VALUE", help="input value from t = 0")
+    p.add_argument("--step", action="append", default=[], metavar="NAME@T=VALUE", help="step an input at time T")
+    p.add_argument("--ramp", action="append", default=[], metavar="NAME@T0:T1=V0:V1", help="ramp an input linearly")
+    p.add_argument("--out", required=True, metavar="FILE.csv", help="CSV output")
+    p.add_argument("--plot", metavar="FILE.png", help="PNG plot")
+    p.set_defaults(func=_do_sim)
+
+
+def _do_sim(args):
+    from ..sim import Segment, parse_ramp, parse_step, plot, run_offline, write_csv, INPUTS
+    from . import load_plant
+
+    if not (args.t_end > 0 and math.isfinite(args.t_end)):
+        raise ConfigError(f"--t-end: must be > 0, got {args.t_end!r}")
+    if args.dt is not None:
+        if not (args.dt > 0 and math.isfinite(args.dt)):
+            raise ConfigError(f"--dt: must be > 0, got {args.dt!r}")
+        args.overrides = list(args.overrides) + [f"sim.dt_us={args.dt * 1e6!r}"]
+    if not str(args.out).lower().endswith(".csv"):
+        raise ConfigError(f"--out: {args.out}: expected a file name ending in .csv")
+    if args.plot and not str(args.plot).lower().endswith(".png"):
+        raise ConfigError(f"--plot: {args.plot}: expected a file name ending in .png")
+    plant = load_plant(args)
+    segs = []
+    for text in args.set_input:
+        if "=" not in text:
+            raise ConfigError(f"--set-input: '{text}': expected NAME=VALUE")
+        name, val = text.split("=", 1)
+        segs.append(parse_step(f"{name}@0={val}"))
+    segs += [parse_step(s) for s in args.step] + [parse_ramp(r) for r in args.ramp]
+    sample = args.sample
+    if sample is None:
+        sample = plant.dt_s if plant.converter is not None else max(plant.dt_s, 1e-3)
+    if sample < plant.dt_s * 0.999:
+        raise ConfigError(f"--sample: must be at least the model step ({plant.dt_s:g} s), got {sample!r}")
+    n = args.t_end / sample
+    if n > 5e6:
+        raise ConfigError(f"--sample: {n:.0f} rows is too many; use a larger --sample")
+    t, Y = run_offline(plant, args.t_end, sample, segs)
+    write_csv(args.out, Y)
+    if args.plot:
+        plot(args.plot, Y, plant.machine["machine.name"])
+    status = 0
+    for s in Y[:, L.Y_STATUS].astype(int):
+        status |= s
+    last = Y[-1]
+    print(f"{plant.machine['machine.name']}: {t[-1]:.3f} s simulated, {len(t)} rows -> {args.out}"
+          + (f", plot -> {args.plot}" if args.plot else ""))
+    print(f"  end: speed {last[L.Y_SPEED_RPM]:.1f} r/min, armature {last[L.Y_IA_A]:.1f} A, "
+          f"field {last[L.Y_IF_A]:.2f} A, EMF {last[L.Y_EMF_V]:.1f} V, terminal {last[L.Y_VT_MEAN_V]:.1f} V")
+    print(f"  peaks: |ia| {np.max(np.abs(Y[:, L.Y_IA_PEAK_A])):.0f} A, speed {np.max(np.abs(Y[:, L.Y_SPEED_RPM])):.0f} r/min")
+    flags = [name for bit, name in L.ST_NAMES.items() if status & bit]
+    print(f"  model flags seen: {', '.join(flags) if flags else 'none'}")
+    if status & L.ST_NONFINITE:
+        print("error: the model state became non-finite; reduce the step", flush=True)
+        return 2
+    return 0

@@ -1,0 +1,273 @@
+"""Loading and validating machine and converter configs (TOML) against host.schema.
+
+Owns: reading files, `--set KEY=VALUE` overrides, every validation rule, and the resolved
+config (a flat dict "section.key" -> value with defaults filled in). Every rule failure is a
+ConfigError whose message is one line: "FILE: KEY: rule, got VALUE". Imports no rtmodel.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from .errors import ConfigError
+from .schema import KEYS_BY_KIND, REQUIRED, Key
+
+
+@dataclass
+class Config:
+    """A validated config: `values` maps 'section.key' to a value; defaults filled in."""
+
+    kind: str  # "machine" or "converter"
+    source: str  # file name, for messages
+    values: dict[str, Any]
+    warnings: list[str] = field(default_factory=list)
+
+    def __getitem__(self, path: str) -> Any:
+        return self.values[path]
+
+    def get(self, path: str, default: Any = None) -> Any:
+        v = self.values.get(path)
+        return default if v is None else v
+
+
+def _flatten(table: dict, prefix: str, out: dict, sections: set[str]) -> None:
+    for k, v in table.items():
+        path = f"{prefix}.{k}" if prefix else k
+        if isinstance(v, dict):
+            _flatten(v, path, out, sections)
+        else:
+            out[path] = v
+
+
+def parse_override(text: str) -> tuple[str, Any]:
+    """'machine.ra_ohm=0.03' -> ('machine.ra_ohm', 0.03). Values are read as TOML values;
+    anything TOML cannot read is kept as a string."""
+    if "=" not in text:
+        raise ConfigError(f"--set: '{text}': expected KEY=VALUE, e.g. machine.ra_ohm=0.03")
+    key, raw = text.split("=", 1)
+    key = key.strip()
+    raw = raw.strip()
+    try:
+        value = tomllib.loads(f"v = {raw}")["v"]
+    except tomllib.TOMLDecodeError:
+        value = raw
+    return key, value
+
+
+def _rule_fail(src: str, path: str, rule: str, value: Any) -> ConfigError:
+    return ConfigError(f"{src}: {path}: {rule}, got {value!r}")
+
+
+def _check_type(src: str, key: Key, value: Any) -> Any:
+    kind = key.kind
+    if kind == "float":
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise _rule_fail(src, key.path, "must be a number", value)
+        value = float(value)
+        if not math.isfinite(value):
+            raise _rule_fail(src, key.path, "must be finite", value)
+        return value
+    if kind == "int":
+        if isinstance(value, bool) or not isinstance(value, int):
+            raise _rule_fail(src, key.path, "must be a whole number", value)
+        return value
+    if kind == "bool":
+        if not isinstance(value, bool):
+            raise _rule_fail(src, key.path, "must be true or false", value)
+        return value
+    if kind == "str":
+        if not isinstance(value, str):
+            raise _rule_fail(src, key.path, "must be a string", value)
+        return value
+    if kind == "floats":
+        if not isinstance(value, (list, tuple)) or any(
+            isinstance(v, bool) or not isinstance(v, (int, float)) for v in value
+        ):
+            raise _rule_fail(src, key.path, "must be a list of numbers", value)
+        out = tuple(float(v) for v in value)
+        if not all(math.isfinite(v) for v in out):
+            raise _rule_fail(src, key.path, "must hold finite numbers", value)
+        return out
+    raise AssertionError(kind)
+
+
+def _check_rule(src: str, key: Key, value: Any) -> None:
+    rule = key.rule
+    if not rule or value is None:
+        return
+    if rule == "gt0" and not value > 0:
+        raise _rule_fail(src, key.path, "must be > 0", value)
+    if rule == "ge0" and not value >= 0:
+        raise _rule_fail(src, key.path, "must be >= 0", value)
+    if rule.startswith("range:"):
+        lo, hi = (float(v) for v in rule.split(":")[1:])
+        if not lo <= value <= hi:
+            raise _rule_fail(src, key.path, f"must be within [{lo:g}, {hi:g}]", value)
+    if rule.startswith("choice:"):
+        choices = rule.split(":", 1)[1].split("|")
+        if value not in choices:
+            hint = difflib.get_close_matches(str(value), choices, n=1)
+            more = f"; did you mean '{hint[0]}'?" if hint else ""
+            raise ConfigError(f"{src}: {key.path}: expected one of {choices}, got {value!r}{more}")
+
+
+def resolve(kind: str, data: dict, src: str, overrides: list[str] | tuple[str, ...] = ()) -> Config:
+    """Validate a parsed TOML table (plus overrides) and fill in defaults."""
+    keys = KEYS_BY_KIND[kind]
+    by_path = {k.path: k for k in keys}
+    flat: dict[str, Any] = {}
+    _flatten(data, "", flat, set())
+    for text in overrides:
+        path, value = parse_override(text)
+        if path not in by_path:
+            hint = difflib.get_close_matches(path, list(by_path), n=1)
+            more = f"; did you mean '{hint[0]}'?" if hint else ""
+            raise ConfigError(f"--set: {path}: unknown key{more}")
+        flat[path] = value
+    for path in flat:
+        if path not in by_path:
+            hint = difflib.get_close_matches(path, list(by_path), n=1, cutoff=0.6)
+            more = f"; did you mean '{hint[0]}'?" if hint else ""
+            raise ConfigError(f"{src}: {path}: unknown key{more}")
+    values: dict[str, Any] = {}
+    for key in keys:
+        if key.path in flat:
+            value = _check_type(src, key, flat[key.path])
+            _check_rule(src, key, value)
+        elif key.default is REQUIRED:
+            raise ConfigError(f"{src}: {key.path}: required key is missing")
+        else:
+            value = key.default
+        values[key.path] = value
+    cfg = Config(kind=kind, source=src, values=values)
+    if kind == "machine":
+        _check_machine(cfg)
+    else:
+        _check_converter(cfg)
+    return cfg
+
+
+def load(kind: str, path: str | Path, overrides: list[str] | tuple[str, ...] = ()) -> Config:
+    """Read and validate a config file. Raises ConfigError with one line on any problem."""
+    src = str(path)
+    try:
+        text = Path(path).read_text(encoding="utf-8")
+    except OSError as err:
+        raise ConfigError(f"{src}: cannot read file ({err.strerror})") from err
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise ConfigError(f"{src}: not valid TOML ({err})") from err
+    if kind not in data and kind == "machine":
+        raise ConfigError(f"{src}: machine: required table is missing (is this a machine config?)")
+    if kind == "converter" and "converter" not in data:
+        raise ConfigError(f"{src}: converter: required table is missing (is this a converter config?)")
+    return resolve(kind, data, src, overrides)
+
+
+def _strictly_increasing(seq) -> bool:
+    return all(b > a for a, b in zip(seq, seq[1:]))
+
+
+def _check_machine(cfg: Config) -> None:
+    src = cfg.source
+    v = cfg.values
+    conn = v["machine.connection"]
+    series_like = conn == "series"
+    compound = conn.startswith("compound")
+    need = []
+    if not series_like:
+        need += ["machine.rated_field_current_A", "machine.field_resistance_ohm"]
+    need.append("machine.field_inductance_H")
+    if series_like or compound:
+        need.append("machine.series_resistance_ohm")
+    if compound:
+        need.append("machine.series_turns_ratio")
+    for path in need:
+        if v[path] is None:
+            raise ConfigError(f"{src}: {path}: required for connection '{conn}'")
+    xs = v["machine.magnetization.field_current_A"]
+    es = v["machine.magnetization.emf_V"]
+    p_x = "machine.magnetization.field_current_A"
+    p_e = "machine.magnetization.emf_V"
+    if len(xs) < 4:
+        raise _rule_fail(src, p_x, "needs at least 4 points", list(xs))
+    if len(xs) > 32:
+        raise _rule_fail(src, p_x, "allows at most 32 points", len(xs))
+    if len(es) != len(xs):
+        raise ConfigError(f"{src}: {p_e}: must have as many points as {p_x} ({len(xs)}), got {len(es)}")
+    if xs[0] != 0.0:
+        raise _rule_fail(src, p_x, "must start at 0 (the residual point)", xs[0])
+    if not _strictly_increasing(xs):
+        raise _rule_fail(src, p_x, "must be strictly increasing", list(xs))
+    if es[0] < 0.0:
+        raise _rule_fail(src, p_e, "residual EMF (first value) must be >= 0", es[0])
+    if not _strictly_increasing(es):
+        raise _rule_fail(src, p_e, "must be strictly increasing (a monotone curve)", list(es))
+    ax = v["machine.armature_reaction.armature_current_A"]
+    ay = v["machine.armature_reaction.field_equivalent_A"]
+    if len(ax) != len(ay):
+        raise ConfigError(
+            f"{src}: machine.armature_reaction.field_equivalent_A: must have as many points as "
+            f"armature_current_A ({len(ax)}), got {len(ay)}"
+        )
+    if len(ax) > 8:
+        raise _rule_fail(src, "machine.armature_reaction.armature_current_A", "allows at most 8 points", len(ax))
+    if ax and (ax[0] <= 0.0 or not _strictly_increasing(ax)):
+        raise _rule_fail(src, "machine.armature_reaction.armature_current_A", "must be positive and strictly increasing", list(ax))
+    if any(y < 0.0 for y in ay):
+        raise _rule_fail(src, "machine.armature_reaction.field_equivalent_A", "must be >= 0", list(ay))
+    # rated values must agree with each other and with the curve
+    vr = v["machine.rated_voltage_V"]
+    ir = v["machine.rated_current_A"]
+    pr = v["machine.rated_power_kW"] * 1e3
+    nr = v["machine.rated_speed_rpm"]
+    if pr > vr * ir * 1.0001:
+        raise ConfigError(
+            f"{src}: machine.rated_power_kW: must not exceed rated voltage x rated current "
+            f"({vr * ir / 1e3:.1f} kW), got {pr / 1e3:g}"
+        )
+    if pr < 0.3 * vr * ir:
+        raise ConfigError(
+            f"{src}: machine.rated_power_kW: below 30 % of rated voltage x rated current "
+            f"({vr * ir / 1e3:.1f} kW) is not a plausible rating, got {pr / 1e3:g}"
+        )
+    mx = v["machine.max_speed_rpm"]
+    if mx is not None and mx < nr:
+        raise _rule_fail(src, "machine.max_speed_rpm", f"must be >= rated_speed_rpm ({nr:g})", mx)
+    r_series = v["machine.series_resistance_ohm"] or 0.0
+    drop = ir * (v["machine.ra_ohm"] + r_series) + v["machine.brush_drop_V"]
+    if v["machine.duty"] == "motor" and drop >= vr:
+        raise ConfigError(
+            f"{src}: machine.ra_ohm: armature drop at rated current ({drop:.1f} V) must be below "
+            f"rated voltage ({vr:g} V), got {v['machine.ra_ohm']!r}"
+        )
+    top = es[-1] * nr / v["machine.magnetization.speed_rpm"]
+    if top < 0.5 * vr:
+        raise ConfigError(
+            f"{src}: {p_e}: the curve reaches only {top:.0f} V at rated speed, below half the rated "
+            f"voltage ({vr:g} V): curve and ratings disagree, got last point {es[-1]:g}"
+        )
+    if conn in ("separate", "shunt"):
+        fr = v["machine.field_resistance_ohm"] * (235.0 + v["machine.field_temp_C"]) / (235.0 + v["machine.resistance_ref_C"])
+        vf = fr * v["machine.rated_field_current_A"]
+        if conn == "shunt" and vf + v["machine.field_rheostat_ohm"] * v["machine.rated_field_current_A"] > 1.2 * vr:
+            raise ConfigError(
+                f"{src}: machine.rated_field_current_A: a shunt field cannot carry it from the rated "
+                f"voltage ({vr:g} V): field circuit needs {vf:.0f} V, got {v['machine.rated_field_current_A']!r}"
+            )
+
+
+def _check_converter(cfg: Config) -> None:
+    src = cfg.source
+    v = cfg.values
+    if v["bridge.alpha_min_deg"] >= v["bridge.alpha_max_deg"]:
+        raise ConfigError(
+            f"{src}: bridge.alpha_max_deg: must exceed alpha_min_deg ({v['bridge.alpha_min_deg']:g}), "
+            f"got {v['bridge.alpha_max_deg']!r}"
+        )

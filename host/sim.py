@@ -1,0 +1,194 @@
+"""Offline transient runs: input profiles, the sample loop, CSV and plot output.
+
+Owns: the named model inputs a user may drive (with units), step/ramp profiles, and
+`run_offline`, which calls the step kernel once per recorded sample. The host/rtmodel
+boundary is rtmodel.layout (array layout) and rtmodel.kernel.step_frame (one call per sample
+or frame); nothing else of rtmodel is called here.
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from rtmodel import layout as L
+
+from .errors import ConfigError
+from .params import RPM, Plant
+
+# user-facing input names -> (index, scale from user unit to model unit)
+INPUTS = {
+    "terminal_voltage_V": (L.U_VT_V, 1.0),
+    "firing_angle_deg": (L.U_ALPHA_DEG, 1.0),
+    "bridge": (L.U_BRIDGE_SELECT, 1.0),
+    "current_ref_A": (L.U_IREF_A, 1.0),
+    "field_voltage_V": (L.U_FIELD_V, 1.0),
+    "field_angle_deg": (L.U_FIELD_ALPHA_DEG, 1.0),
+    "contactor": (L.U_CONTACTOR, 1.0),
+    "load_torque_Nm": (L.U_LOAD_TORQUE_NM, 1.0),
+    "prime_speed_rpm": (L.U_PRIME_SPEED_RAD_S, RPM),
+    "load_ohm": (L.U_LOAD_OHM, 1.0),
+    "mains_pu": (L.U_MAINS_PU, 1.0),
+    "mains_hz_dev": (L.U_MAINS_HZ_DEV, 1.0),
+    "phase_lost": (L.U_PHASE_LOST, 1.0),
+    "phase_reversed": (L.U_PHASE_REVERSED, 1.0),
+    "misfire_mask": (L.U_MISFIRE_MASK, 1.0),
+    "short_mask": (L.U_SHORT_MASK, 1.0),
+    "pulses_blocked": (L.U_PULSES_BLOCKED, 1.0),
+    "fuse_blown_mask": (L.U_FUSE_BLOWN_MASK, 1.0),
+    "field_open": (L.U_FIELD_OPEN, 1.0),
+    "armature_short": (L.U_ARMATURE_SHORT, 1.0),
+    "locked_rotor": (L.U_LOCKED_ROTOR, 1.0),
+    "coupling_broken": (L.U_COUPLING_BROKEN, 1.0),
+}
+assert len({i for i, _ in INPUTS.values()}) == L.N_INPUT
+
+
+@dataclass(frozen=True)
+class Segment:
+    """An input change: a step to v1 at t0 (t1 == t0), or a linear ramp v0 -> v1 over t0..t1."""
+
+    name: str
+    t0_s: float
+    t1_s: float
+    v0: float
+    v1: float
+
+    def value(self, t_s: float, before: float) -> float:
+        if t_s < self.t0_s:
+            return before
+        if t_s >= self.t1_s:
+            return self.v1
+        return self.v0 + (self.v1 - self.v0) * (t_s - self.t0_s) / (self.t1_s - self.t0_s)
+
+
+def _name_ok(name: str, where: str) -> None:
+    if name not in INPUTS:
+        import difflib
+
+        hint = difflib.get_close_matches(name, list(INPUTS), n=1)
+        more = f"; did you mean '{hint[0]}'?" if hint else ""
+        raise ConfigError(f"{where}: unknown input '{name}'{more} (known: {', '.join(sorted(INPUTS))})")
+
+
+def parse_step(text: str) -> Segment:
+    """'NAME@T=VALUE', e.g. 'terminal_voltage_V@0.5=440'."""
+    try:
+        lhs, val = text.split("=", 1)
+        name, t = lhs.split("@", 1)
+        t_s = float(t)
+        v = float(val)
+    except ValueError as err:
+        raise ConfigError(f"--step: '{text}': expected NAME@TIME_S=VALUE, e.g. load_torque_Nm@1.5=4000") from err
+    _name_ok(name, "--step")
+    if not (math.isfinite(t_s) and t_s >= 0 and math.isfinite(v)):
+        raise ConfigError(f"--step: '{text}': time must be >= 0 and values finite")
+    return Segment(name, t_s, t_s, v, v)
+
+
+def parse_ramp(text: str) -> Segment:
+    """'NAME@T0:T1=V0:V1', e.g. 'firing_angle_deg@0.2:2.0=150:20'."""
+    try:
+        lhs, vals = text.split("=", 1)
+        name, ts = lhs.split("@", 1)
+        t0, t1 = (float(v) for v in ts.split(":"))
+        v0, v1 = (float(v) for v in vals.split(":"))
+    except ValueError as err:
+        raise ConfigError(
+            f"--ramp: '{text}': expected NAME@T0:T1=V0:V1, e.g. firing_angle_deg@0.2:2.0=150:20"
+        ) from err
+    _name_ok(name, "--ramp")
+    if not (0 <= t0 < t1 and all(math.isfinite(v) for v in (t0, t1, v0, v1))):
+        raise ConfigError(f"--ramp: '{text}': need 0 <= T0 < T1 and finite values")
+    return Segment(name, t0, t1, v0, v1)
+
+
+def apply_profile(u: np.ndarray, u_start: np.ndarray, segments: list[Segment], t_s: float) -> None:
+    """Set u for time t_s: the start value, then each segment in order (later ones win)."""
+    u[:] = u_start
+    for seg in segments:
+        idx, scale = INPUTS[seg.name]
+        u[idx] = seg.value(t_s, u[idx] / scale) * scale
+
+
+def run_offline(plant: Plant, t_end_s: float, sample_s: float, segments: list[Segment] = (), x=None):
+    """Run the model from x (or the plant's initial state) and record one output row per sample.
+
+    Returns (t_s, Y) with Y of shape (n_samples + 1, N_OUTPUT); row 0 is the initial state.
+    One kernel call per sample; inputs are held over a sample (sample_s >= one step).
+    """
+    from rtmodel.kernel import step_frame
+
+    dt = plant.dt_s
+    n_sub = max(1, int(round(sample_s / dt)))
+    n = int(math.ceil(t_end_s / (n_sub * dt) - 1e-9))
+    x = plant.new_state() if x is None else x
+    u_start = plant.new_inputs()
+    u = u_start.copy()
+    Y = np.zeros((n + 1, L.N_OUTPUT))
+    apply_profile(u, u_start, list(segments), 0.0)
+    step_frame(x, plant.p, u, Y[0], 0)
+    for k in range(n):
+        apply_profile(u, u_start, list(segments), x[L.X_TIME_S])
+        status = step_frame(x, plant.p, u, Y[k + 1], n_sub)
+        if status & L.ST_NONFINITE:
+            Y = Y[: k + 2]
+            break
+    return Y[:, L.Y_TIME_S].copy(), Y
+
+
+CSV_COLUMNS = (
+    L.Y_TIME_S, L.Y_VT_V, L.Y_VT_MEAN_V, L.Y_IA_A, L.Y_I_LINE_A, L.Y_IF_A, L.Y_ISE_A, L.Y_EMF_V,
+    L.Y_SPEED_RPM, L.Y_TORQUE_NM, L.Y_LOAD_TORQUE_NM, L.Y_TEMP_ARM_C, L.Y_FIELD_VT_V,
+    L.Y_VT_PULSE_MEAN_V, L.Y_LINE_IA_A, L.Y_LINE_IB_A, L.Y_LINE_IC_A, L.Y_CONDUCTING_MASK,
+    L.Y_LAST_FIRE_ANGLE_DEG, L.Y_STATUS,
+)
+
+
+def write_csv(path: str | Path, Y: np.ndarray, columns=CSV_COLUMNS) -> None:
+    """CSV with a header of unit-suffixed names (rtmodel.layout.OUTPUT_COLUMNS)."""
+    path = Path(path)
+    if path.suffix.lower() != ".csv":
+        raise ConfigError(f"--out: {path}: expected a .csv file name, got suffix '{path.suffix}'")
+    with path.open("w", newline="") as fh:
+        w = csv.writer(fh)
+        w.writerow([L.OUTPUT_COLUMNS[c] for c in columns])
+        for row in Y[:, list(columns)]:
+            w.writerow([f"{v:.6g}" for v in row])
+
+
+def plot(path: str | Path, Y: np.ndarray, title: str) -> None:
+    """Four stacked panels: voltages, currents, speed, torques. Headless (Agg)."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    t = Y[:, L.Y_TIME_S]
+    fig, ax = plt.subplots(4, 1, sharex=True, figsize=(9, 9))
+    ax[0].plot(t, Y[:, L.Y_VT_V], lw=0.6, label="terminal voltage")
+    ax[0].plot(t, Y[:, L.Y_EMF_V], lw=1.0, label="EMF")
+    ax[0].set_ylabel("V")
+    ax[1].plot(t, Y[:, L.Y_IA_A], lw=0.6, label="armature current")
+    ax[1].set_ylabel("A")
+    a2 = ax[1].twinx()
+    a2.plot(t, Y[:, L.Y_IF_A], color="tab:green", lw=1.0, label="field current")
+    a2.set_ylabel("field A")
+    ax[2].plot(t, Y[:, L.Y_SPEED_RPM], lw=1.0, label="speed")
+    ax[2].set_ylabel("r/min")
+    ax[3].plot(t, Y[:, L.Y_TORQUE_NM], lw=0.6, label="electromagnetic torque")
+    ax[3].plot(t, Y[:, L.Y_LOAD_TORQUE_NM], lw=1.0, label="load torque")
+    ax[3].set_ylabel("N m")
+    ax[3].set_xlabel("time (s)")
+    for a in ax:
+        a.grid(True, alpha=0.3)
+        a.legend(loc="upper right", fontsize=8)
+    a2.legend(loc="lower right", fontsize=8)
+    fig.suptitle(title)
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
+    plt.close(fig)
