@@ -26,7 +26,7 @@ Public API:
                    (pyserial), pty:// (ours: master end, .peer_path names the slave),
                    tcp-listen://127.0.0.1:5020 (ours; binds 127.0.0.1 unless a host is given)
         bad URL, baud or parity -> LinkError("link 'URL': <key> <value>: <rule>")
-    usb_latency_timer_ms(port_path) -> int | None
+    usb_latency_timer_ms(port_path, sysfs_root="/sys") -> int | None
     class LinkWarning(UserWarning)
 
 Caution: a link carries firing commands for a real converter once the host drives hardware.
@@ -402,11 +402,12 @@ class TcpListenLink(Link):
         self._srv.close()
 
 
-def usb_latency_timer_ms(port_path: str) -> int | None:
-    """The latency timer of a USB-serial adapter (Linux sysfs), None when it cannot be read."""
+def usb_latency_timer_ms(port_path: str, sysfs_root: str = "/sys") -> int | None:
+    """The latency timer of a USB-serial adapter (Linux sysfs), None when it cannot be read.
+    FTDI-style adapters hold received bytes up to this long before sending a USB packet."""
     try:
         name = os.path.basename(os.path.realpath(port_path))
-        with open(f"/sys/bus/usb-serial/devices/{name}/latency_timer", encoding="ascii") as fh:
+        with open(f"{sysfs_root}/bus/usb-serial/devices/{name}/latency_timer", encoding="ascii") as fh:
             return int(fh.read().strip())
     except (OSError, ValueError):
         return None
