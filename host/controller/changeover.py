@@ -67,11 +67,12 @@ class Changeover:
                 phase = DEAD
                 self.timer_s = 0.0
         elif phase == DEAD:
+            # the first frame that reads zero current counts as time 0 (as when DEAD began)
             if -self.zero_current_A < ia < self.zero_current_A:
-                self.timer_s += dt_s
+                self.timer_s = 0.0 if self.timer_s < 0.0 else self.timer_s + dt_s
             else:
-                self.timer_s = 0.0  # current seen again: the dead time starts over
-            if self.timer_s + 1e-9 >= self.dead_time_s and -self.zero_current_A < ia < self.zero_current_A:
+                self.timer_s = -1.0  # current seen again: the dead time starts over
+            if self.timer_s >= 0.0 and self.timer_s + 1e-9 >= self.dead_time_s:
                 if want_other:
                     self.bridge = BRIDGE_REVERSE if self.bridge == BRIDGE_FORWARD else BRIDGE_FORWARD
                 phase = CONDUCT

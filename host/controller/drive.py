@@ -314,6 +314,8 @@ class DriveController:
         self._prev_op_run = op_run
 
         state = self._state
+        # time in the present state; a state entered in this frame starts at 0
+        self._state_timer_s += dt_s
         # ---- protections ----------------------------------------------------------------------
         if state != TRIPPED:
             self._protect(fb, dt_s, ia, va, i_f, n_raw, n, emf, phi, state)
@@ -321,7 +323,6 @@ class DriveController:
 
         # ---- sequencing -----------------------------------------------------------------------
         released = False
-        self._state_timer_s += dt_s
         if state == STOPPED:
             self._contactor = 0
             if run:
