@@ -180,3 +180,22 @@ if __name__ == "__main__":  # tuning aid: prints a coarse trace
     run(ctrl, plant, 5.0, 450.0, tr)
     for row in tr[::15]:
         print(" ".join(f"{v:9.3f}" if isinstance(v, float) else f"{v!s:>9}" for v in row))
+
+
+def test_kestrel_f3_settles_within_1_percent_after_acceleration():
+    # plant constants from configs/machines/kestrel_f3_stand.toml: Ra, La, J = 62 + 48 kg m^2,
+    # EMF per rpm at rated field from the nameplate (440 V - Ra*I - 2 V brushes) / 500 rpm
+    s = load_settings(CFG / "kestrel_f3_stand.toml").replace({"field.mode": "voltage"})
+    ctrl = DriveController(s)
+    kphi = (440.0 - 0.0175 * 1040.0 - 2.0) / 500.0
+    rated_torque = kphi * 60 / (2 * math.pi) * 1040.0
+    plant = AveragedPlant(ra=0.0175, la=0.00085, kphi_v_per_rpm=kphi, j=110.0,
+                          load_nm=0.4 * rated_torque, if_rated=18.0)
+    ref = 480.0
+    trace = []
+    run(ctrl, plant, 6.0, ref, trace)
+    assert not ctrl.tripped, ctrl.first_trip
+    tail = [row for row in trace if row[0] >= 4.7]  # ramp done at 3.25 s
+    worst = max(abs(row[1] - ref) for row in tail)
+    assert worst < 0.01 * ref, worst
+    assert all(row[6] != BRIDGE_REVERSE for row in trace)  # one bridge only

@@ -89,7 +89,7 @@ _k("motor.la_H", "float", REQUIRED, "must be > 0", _pos,
 _k("motor.magnetisation_if_pu", "floats", [0.0, 1.0], "must be increasing, start at 0", None,
    "Field current points (per unit of field.rated_current_A; series motor: of "
    "motor.rated_current_A) of the magnetisation curve.")
-_k("motor.magnetisation_phi_pu", "floats", [0.0, 1.0], "must be increasing, start at 0", None,
+_k("motor.magnetisation_phi_pu", "floats", [0.0, 1.0], "must be increasing, start at >= 0", None,
    "Flux points (per unit of rated flux) matching motor.magnetisation_if_pu.")
 
 # --- tacho ------------------------------------------------------------------------------------
@@ -382,9 +382,10 @@ def _cross_checks(source: str, v: dict[str, Any]) -> None:
         fail("motor.magnetisation_if_pu", "must have 2..32 points")
     if len(ys) != len(xs):
         fail("motor.magnetisation_phi_pu", "must have as many points as motor.magnetisation_if_pu")
-    for name, pts in (("motor.magnetisation_if_pu", xs), ("motor.magnetisation_phi_pu", ys)):
-        if pts[0] != 0.0 or any(b <= a for a, b in zip(pts, pts[1:])):
-            fail(name, "must be increasing, start at 0")
+    if xs[0] != 0.0 or any(b <= a for a, b in zip(xs, xs[1:])):
+        fail("motor.magnetisation_if_pu", "must be increasing, start at 0")
+    if ys[0] < 0.0 or any(b <= a for a, b in zip(ys, ys[1:])):
+        fail("motor.magnetisation_phi_pu", "must be increasing, start at >= 0 (remanence)")
     if v["motor.connection"] == "separate":
         # the curve must reach rated flux, or the weakening feedforward cannot invert it
         if ys[-1] < 1.0:
