@@ -1,0 +1,423 @@
+"""The host loop: applies controller commands to the model, one kernel call per frame.
+
+Owns: mapping Command -> model inputs and model outputs -> Feedback (the plant's sensors),
+the lockstep and paced real-time loops, the watchdog reaction, the frame record and the
+timing statistics. The link is a host.link.HostSession; the model is rtmodel.kernel.step_frame.
+
+Per frame the Python work is constant: decode one command, write a few input slots, one
+numba call for n_sub steps, copy one output row into a preallocated record, encode one
+feedback. Nothing here grows with n_sub.
+
+Lockstep: the host sends feedback k, waits for command k, advances the model one frame with
+it, sends feedback k+1 - deterministic and repeatable for regression. Paced: the host runs
+on the wall clock at the frame period, uses the latest command that arrived, busy-waits the
+last stretch before each deadline and counts every deadline it misses.
+"""
+
+from __future__ import annotations
+
+import gc
+import math
+import os
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from rtmodel import layout as L
+
+from . import signals as sig
+from .errors import ConfigError, LinkError
+from .params import Plant
+
+RAD2DEG = 180.0 / math.pi
+
+# frame record: one fixed-layout float64 row per frame (appended without Python objects)
+REC_COLUMNS = (
+    "time_s", "cmd_seq", "cmd_mode", "bridge_select", "armature_cmd", "field_cmd", "contactor_cmd",
+    "controller_trip", "trip_code", "armature_current_A", "armature_current_peak_A", "field_current_A",
+    "terminal_voltage_V", "emf_V", "speed_rpm", "torque_Nm", "load_torque_Nm", "firing_angle_deg",
+    "armature_temperature_C", "model_status", "host_status", "link_ok", "op_speed_ref_rpm",
+    "host_work_us",
+)  # fmt: skip
+R = {name: k for k, name in enumerate(REC_COLUMNS)}
+
+
+@dataclass
+class Operator:
+    """What a PLC or an operator desk would send: run, stop, speed reference."""
+
+    run: int = 0
+    stop: int = 0
+    speed_ref_rpm: float = 0.0
+
+
+@dataclass
+class LoopStats:
+    frames: int = 0
+    commands: int = 0
+    missed_commands: int = 0  # lockstep: frames advanced without a fresh command
+    link_loss_events: int = 0
+    deadline_misses: int = 0
+    host_work_ns: list = field(default_factory=list)  # per frame, filled from the record
+    jitter_ns: np.ndarray | None = None
+    granted: dict = field(default_factory=dict)  # what the OS allowed: priority, affinity, gc
+
+
+def frame_steps(plant: Plant, frame_period_us: int) -> tuple[int, float]:
+    """Substeps per frame and the step that makes them fill the frame exactly."""
+    n = max(1, round(frame_period_us * 1e-6 / plant.dt_s))
+    return n, frame_period_us * 1e-6 / n
+
+
+class Sensors:
+    """Model outputs -> what the controller's sensors read; sensor faults live here."""
+
+    def __init__(self, plant: Plant):
+        self.v_ll = float(plant.p[L.P_MAINS_VLL_V]) if plant.converter is not None else 0.0
+        self.tacho_gain = 1.0  # 0: tachogenerator lost, -1: leads reversed
+        self.encoder_lost = False
+        self.contactor_delay_s = 0.04  # main contactor closing/opening time (common practice: tens of ms)
+        self._contactor_closed = 0
+        self._contactor_t = 0.0
+
+    def contactor(self, cmd: int, t_s: float) -> int:
+        """Feedback contact follows the command after the mechanical delay."""
+        if cmd != self._contactor_closed:
+            if self._contactor_t == 0.0:
+                self._contactor_t = t_s
+            if t_s - self._contactor_t >= self.contactor_delay_s:
+                self._contactor_closed = cmd
+                self._contactor_t = 0.0
+        else:
+            self._contactor_t = 0.0
+        return self._contactor_closed
+
+
+class HostLoop:
+    """Runs the plant against a controller over a HostSession.
+
+    Parameters
+    ----------
+    plant : packed Plant (its dt is adjusted so n_sub steps fill one frame)
+    session : host.link.HostSession after handshake
+    frame_period_us : frame period
+    watchdog_periods : frames without a valid command that make a link-loss event
+    on_link_loss : "block" (firing blocked, contactor opened) or "hold" (last command held)
+    clock : injectable ns clock (tests force overruns with it)
+    """
+
+    def __init__(self, plant: Plant, session, frame_period_us: int, watchdog_periods: int = 10,
+                 on_link_loss: str = "block", max_frames: int = 1_000_000, clock=time.perf_counter_ns):
+        if on_link_loss not in ("block", "hold"):
+            raise ConfigError(f"link: on_link_loss: expected one of ['block', 'hold'], got {on_link_loss!r}")
+        from rtmodel.kernel import step_frame
+
+        self._step = step_frame
+        self.plant = plant
+        self.session = session
+        self.frame_period_us = int(frame_period_us)
+        self.n_sub, dt = frame_steps(plant, self.frame_period_us)
+        self.p = plant.p.copy()
+        self.p[L.P_DT_S] = dt
+        self.x = plant.new_state()
+        self.u = plant.new_inputs()
+        self.u[L.U_CONTACTOR] = 0.0
+        self.u[L.U_BRIDGE_SELECT] = 0.0
+        self.y = np.zeros(L.N_OUTPUT)
+        self.watchdog_periods = watchdog_periods
+        self.on_link_loss = on_link_loss
+        self.clock = clock
+        self.sensors = Sensors(plant)
+        self.operator = Operator()
+        self.record = np.zeros((max_frames, len(REC_COLUMNS)))
+        self.n_rec = 0
+        self.events: list[tuple[float, str, str]] = []  # (time_s, kind, text)
+        self.stats = LoopStats()
+        self.last_cmd = sig.Command()
+        self.fb = sig.Feedback()
+        self._no_cmd_frames = 0
+        self._link_lost = False
+        self._trip_logged = False
+        self.hooks = []  # callables hook(loop) before each frame (scenario timeline, faults)
+        self.supply = int(self.p[L.P_SUPPLY_KIND])
+        self.field_kind = int(self.p[L.P_FIELD_SUPPLY_KIND])
+        self.vdo = 3.0 * math.sqrt(2.0) / math.pi * float(self.p[L.P_MAINS_VLL_V])
+        self.field_vdo = math.sqrt(2.0) / math.pi * float(self.p[L.P_FIELD_VAC_V])
+        self._step(self.x, self.p, self.u, self.y, 0)  # outputs of the initial state, compiles if needed
+
+    # ------------------------------------------------------------------ mapping
+    def apply_command(self, cmd: sig.Command) -> None:
+        """Write a controller command into the model inputs."""
+        u = self.u
+        if cmd.mode == sig.MODE_FIRING_ANGLE:
+            u[L.U_ALPHA_DEG] = cmd.armature_cmd
+        elif cmd.mode == sig.MODE_VOLTAGE:
+            if self.supply == L.SUPPLY_DC:
+                u[L.U_VT_V] = cmd.armature_cmd
+            else:  # a voltage-controlled converter: linearise here
+                c = max(-1.0, min(1.0, cmd.armature_cmd / self.vdo))
+                u[L.U_ALPHA_DEG] = math.degrees(math.acos(c))
+        else:
+            u[L.U_IREF_A] = cmd.armature_cmd
+        u[L.U_BRIDGE_SELECT] = cmd.bridge_select
+        if cmd.field_mode == sig.FIELD_MODE_FIRING_ANGLE:
+            u[L.U_FIELD_ALPHA_DEG] = cmd.field_cmd
+            if self.field_kind == L.FIELD_SUPPLY_DC:
+                u[L.U_FIELD_V] = self.field_vdo * (1.0 + math.cos(math.radians(cmd.field_cmd)))
+        else:
+            u[L.U_FIELD_V] = cmd.field_cmd
+            if self.field_kind != L.FIELD_SUPPLY_DC:
+                c = max(-1.0, min(1.0, cmd.field_cmd / self.field_vdo - 1.0))
+                u[L.U_FIELD_ALPHA_DEG] = math.degrees(math.acos(c))
+        if self.supply == L.SUPPLY_DC and cmd.bridge_select == sig.BRIDGE_BLOCKED:
+            u[L.U_VT_V] = 0.0 if cmd.mode == sig.MODE_VOLTAGE else u[L.U_VT_V]
+        u[L.U_CONTACTOR] = 1.0 if cmd.contactor else 0.0
+
+    def make_feedback(self) -> sig.Feedback:
+        y = self.y
+        fb = self.fb
+        s = self.sensors
+        t = y[L.Y_TIME_S]
+        fb.model_time_us = int(t * 1e6) & 0xFFFFFFFF
+        fb.armature_current_A = y[L.Y_IA_MEAN_A]
+        fb.field_current_A = y[L.Y_IF_A]
+        fb.armature_voltage_V = y[L.Y_VT_MEAN_V]
+        fb.tacho_voltage_V = y[L.Y_TACHO_V] * s.tacho_gain
+        if not s.encoder_lost:
+            c = int(y[L.Y_ENCODER_COUNT])
+            fb.encoder_count = ((c + 2**31) % 2**32) - 2**31
+        fb.mains_angle_deg = y[L.Y_MAINS_ANGLE_RAD] * RAD2DEG
+        fb.mains_voltage_V = s.v_ll * self.u[L.U_MAINS_PU] * (0.5 if self.u[L.U_PHASE_LOST] else 1.0)
+        fb.contactor_closed = s.contactor(int(self.last_cmd.contactor), t)
+        # the model's contactor follows the feedback contact, not the command
+        self.u[L.U_CONTACTOR] = float(fb.contactor_closed)
+        status = int(y[L.Y_STATUS]) << 8
+        if self._link_lost:
+            status |= sig.HOST_WATCHDOG_TRIPPED
+        if status >> 8:
+            status |= sig.HOST_MODEL_ALARM
+        fb.host_status = status
+        fb.op_run = self.operator.run
+        fb.op_stop = self.operator.stop
+        fb.op_speed_ref_rpm = self.operator.speed_ref_rpm
+        if self.session is not None:
+            fb.ack_seq = self.session.last_command_seq or 0
+        return fb
+
+    # ------------------------------------------------------------------ one frame
+    def _advance(self, cmd: sig.Command | None, work_start_ns: int) -> None:
+        if cmd is not None:
+            self.last_cmd = cmd
+            self.stats.commands += 1
+            self._no_cmd_frames = 0
+            if self._link_lost:
+                self._link_lost = False
+                self.event("link", "valid commands again")
+        else:
+            self._no_cmd_frames += 1
+            self.stats.missed_commands += 1
+            if self._no_cmd_frames >= self.watchdog_periods and not self._link_lost:
+                self._link_lost = True
+                self.stats.link_loss_events += 1
+                self.event("link", f"link loss: no valid command for {self._no_cmd_frames} frames; "
+                                   f"reaction: {self.on_link_loss}")
+        c = self.last_cmd
+        if self._link_lost and self.on_link_loss == "block":
+            c = sig.Command(mode=c.mode, bridge_select=sig.BRIDGE_BLOCKED, armature_cmd=c.armature_cmd,
+                            field_mode=c.field_mode, field_cmd=c.field_cmd, contactor=0)
+            self.last_cmd = c
+        for hook in self.hooks:
+            hook(self)
+        self.apply_command(c)
+        self.u[L.U_CONTACTOR] = float(self.sensors._contactor_closed)
+        self._step(self.x, self.p, self.u, self.y, self.n_sub)
+        if c.trip and not self._trip_logged:
+            self._trip_logged = True
+            self.event("trip", f"controller tripped, code {c.trip_code}")
+        self._log_row(c, work_start_ns)
+        self.stats.frames += 1
+
+    def _log_row(self, c: sig.Command, work_start_ns: int) -> None:
+        k = self.n_rec
+        if k >= len(self.record):
+            self.record = np.concatenate([self.record, np.zeros_like(self.record)])
+        r = self.record[k]
+        y = self.y
+        r[0] = y[L.Y_TIME_S]
+        r[1] = c.seq
+        r[2] = c.mode
+        r[3] = c.bridge_select
+        r[4] = c.armature_cmd
+        r[5] = c.field_cmd
+        r[6] = c.contactor
+        r[7] = c.trip
+        r[8] = c.trip_code
+        r[9] = y[L.Y_IA_MEAN_A]
+        r[10] = y[L.Y_IA_PEAK_A]
+        r[11] = y[L.Y_IF_A]
+        r[12] = y[L.Y_VT_MEAN_V]
+        r[13] = y[L.Y_EMF_V]
+        r[14] = y[L.Y_SPEED_RPM]
+        r[15] = y[L.Y_TORQUE_NM]
+        r[16] = y[L.Y_LOAD_TORQUE_NM]
+        r[17] = y[L.Y_LAST_FIRE_ANGLE_DEG]
+        r[18] = y[L.Y_TEMP_ARM_C]
+        r[19] = y[L.Y_STATUS]
+        r[20] = self.fb.host_status
+        r[21] = 0.0 if self._link_lost else 1.0
+        r[22] = self.operator.speed_ref_rpm
+        r[23] = (self.clock() - work_start_ns) * 1e-3
+        self.n_rec = k + 1
+
+    def event(self, kind: str, text: str) -> None:
+        self.events.append((float(self.y[L.Y_TIME_S]), kind, text))
+
+    def rows(self) -> np.ndarray:
+        return self.record[: self.n_rec]
+
+    # ------------------------------------------------------------------ loops
+    def run_lockstep(self, n_frames: int, on_frame=None, command_timeout_s: float | None = None) -> LoopStats:
+        """Feedback -> wait for command -> one frame. Deterministic given the controller.
+
+        command_timeout_s: wall-clock wait per frame; after watchdog_periods empty waits the
+        link is lost. Default: watchdog_periods frame periods, at least 0.2 s.
+        """
+        sess = self.session
+        timeout = command_timeout_s or max(0.2, self.frame_period_us * 1e-6)
+        sess.send_feedback(self.make_feedback())
+        for _ in range(n_frames):
+            cmd = sess.recv_command(timeout)
+            t0 = self.clock()
+            if cmd is None and sess.bye:
+                self.event("link", "controller said bye")
+                break
+            self._drain_events()
+            self._advance(cmd, t0)
+            sess.send_feedback(self.make_feedback())
+            if on_frame is not None and on_frame(self) is False:
+                break
+        self._drain_events()
+        return self.stats
+
+    def run_paced(self, n_frames: int, on_frame=None, busy_wait_us: float = 300.0,
+                  realtime: bool = True) -> LoopStats:
+        """Wall-clock frames: latest command, one model frame, feedback; deadlines counted.
+
+        realtime: try SCHED_FIFO and pin to the last CPU (reported in stats.granted); the
+        garbage collector is frozen for the run either way.
+        """
+        granted = self._grant_realtime() if realtime else {}
+        gc.collect()
+        gc.freeze()
+        gc_was = gc.isenabled()
+        gc.disable()
+        granted["gc"] = "frozen and disabled during the run"
+        self.stats.granted = granted
+        sess = self.session
+        period = self.frame_period_us * 1000
+        clock = self.clock
+        jitter = np.zeros(n_frames, dtype=np.int64)
+        latest: sig.Command | None = None
+        try:
+            next_t = clock() + period
+            sess.send_feedback(self.make_feedback())
+            for k in range(n_frames):
+                # wait: sleep most of the way, poll the link, busy-wait the last stretch
+                while True:
+                    now = clock()
+                    left = next_t - now
+                    if left <= 0:
+                        break
+                    if left > busy_wait_us * 1000:
+                        got = sess.recv_command((left - busy_wait_us * 1000) * 1e-9)
+                        if got is not None:
+                            latest = got
+                    # else spin
+                start = clock()
+                jitter[k] = start - next_t
+                got = sess.recv_command(0.0)
+                while got is not None:
+                    latest = got
+                    got = sess.recv_command(0.0)
+                if sess.bye:
+                    self.event("link", "controller said bye")
+                    jitter = jitter[: k + 1]
+                    break
+                self._drain_events()
+                self._advance(latest, start)
+                latest = None
+                sess.send_feedback(self.make_feedback())
+                done = clock()
+                next_t += period
+                if done > next_t:
+                    # never hide a miss: count it and skip the frames we cannot catch up on
+                    missed = (done - next_t) // period + 1
+                    self.stats.deadline_misses += int(missed)
+                    next_t += int(missed) * period
+                if on_frame is not None and on_frame(self) is False:
+                    jitter = jitter[: k + 1]
+                    break
+        finally:
+            if gc_was:
+                gc.enable()
+            gc.unfreeze()
+            self._drop_realtime(granted)
+        self.stats.jitter_ns = jitter
+        self._drain_events()
+        return self.stats
+
+    def _drain_events(self) -> None:
+        for ev in self.session.pop_events():
+            if isinstance(ev, sig.TripReport):
+                self.event("trip", f"trip report: code {ev.trip_code}, detail {ev.detail:g}, "
+                                   f"controller time {ev.controller_time_us} us")
+            elif isinstance(ev, sig.ControlMessage):
+                self.event("control", f"control op {ev.op} value {ev.value:g} {ev.text}".strip())
+
+    @staticmethod
+    def _grant_realtime() -> dict:
+        granted = {}
+        try:
+            cpus = sorted(os.sched_getaffinity(0))
+            granted["affinity_before"] = cpus
+            os.sched_setaffinity(0, {cpus[-1]})
+            granted["affinity"] = f"pinned to CPU {cpus[-1]}"
+        except (AttributeError, OSError) as err:
+            granted["affinity"] = f"not pinned ({err})"
+        try:
+            granted["policy_before"] = os.sched_getscheduler(0)
+            os.sched_setscheduler(0, os.SCHED_FIFO, os.sched_param(10))
+            granted["scheduler"] = "SCHED_FIFO priority 10"
+        except (AttributeError, OSError, PermissionError) as err:
+            granted["scheduler"] = f"normal scheduling ({err.__class__.__name__}: SCHED_FIFO not permitted)"
+        return granted
+
+    @staticmethod
+    def _drop_realtime(granted: dict) -> None:
+        try:
+            if "policy_before" in granted and granted.get("scheduler", "").startswith("SCHED_FIFO"):
+                os.sched_setscheduler(0, granted["policy_before"], os.sched_param(0))
+            if "affinity_before" in granted:
+                os.sched_setaffinity(0, set(granted["affinity_before"]))
+        except OSError:
+            pass
+
+
+def jitter_table(jitter_ns: np.ndarray) -> dict:
+    """Percentiles of frame start lateness, us."""
+    if jitter_ns is None or len(jitter_ns) == 0:
+        return {}
+    j = np.asarray(jitter_ns, dtype=float) * 1e-3
+    return {
+        "frames": int(len(j)),
+        "median_us": float(np.median(j)),
+        "p99_us": float(np.percentile(j, 99)),
+        "p999_us": float(np.percentile(j, 99.9)),
+        "max_us": float(np.max(j)),
+    }
+
+
+def check_session_ok(session) -> None:
+    if session is None:
+        raise LinkError("no link session")

@@ -1,0 +1,231 @@
+"""A whole closed-loop session: handshake, operator timeline, loop, live status, summary, files.
+
+Owns what `dcrig serve` and `dcrig demo` share: the operator/load timeline of a run, the live
+terminal status line, the end-of-run summary (speed settling, peaks, trips, link health,
+timing) and the output files (frame record CSV, events, plot). The model runs in host.loop.
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+import sys
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from rtmodel import layout as L
+
+from . import signals as sig
+from .loop import REC_COLUMNS, R, HostLoop, jitter_table
+
+
+@dataclass
+class TimelineStep:
+    t_s: float
+    what: str  # "run", "stop", "speed_ref_rpm", "load_torque_Nm", "input:<name>"
+    value: float = 0.0
+
+
+@dataclass
+class Timeline:
+    """Operator inputs and load changes at model times; applied by a loop hook."""
+
+    steps: list[TimelineStep] = field(default_factory=list)
+    _next: int = 0
+
+    def __call__(self, loop: HostLoop) -> None:
+        t = loop.y[L.Y_TIME_S]
+        while self._next < len(self.steps) and self.steps[self._next].t_s <= t + 1e-12:
+            st = self.steps[self._next]
+            self._next += 1
+            op = loop.operator
+            if st.what == "run":
+                op.run, op.stop = 1, 0
+            elif st.what == "stop":
+                op.run, op.stop = 0, 1
+            elif st.what == "speed_ref_rpm":
+                op.speed_ref_rpm = st.value
+            elif st.what == "load_torque_Nm":
+                loop.u[L.U_LOAD_TORQUE_NM] = st.value
+            elif st.what.startswith("input:"):
+                from .sim import INPUTS
+
+                idx, scale = INPUTS[st.what[6:]]
+                loop.u[idx] = st.value * scale
+            loop.event("operator", f"{st.what} {st.value:g}" if st.what not in ("run", "stop") else st.what)
+
+    @property
+    def end_s(self) -> float:
+        return self.steps[-1].t_s if self.steps else 0.0
+
+
+def default_timeline(plant, rated_fraction_load: float = 0.6) -> Timeline:
+    """Start, accelerate to rated speed, load step, stop: the demo's duty cycle."""
+    v = plant.machine.values
+    n_rated = v["machine.rated_speed_rpm"]
+    t_rated = plant.derived["rated_torque_Nm"]
+    return Timeline([
+        TimelineStep(0.1, "run"),
+        TimelineStep(0.1, "speed_ref_rpm", 0.0),
+        TimelineStep(0.6, "speed_ref_rpm", n_rated),
+        TimelineStep(6.0, "load_torque_Nm", rated_fraction_load * t_rated),
+        TimelineStep(9.0, "load_torque_Nm", 0.0),
+        TimelineStep(9.5, "speed_ref_rpm", 0.0),
+        TimelineStep(12.5, "stop"),
+        TimelineStep(14.0, "stop"),
+    ])  # fmt: skip
+
+
+class StatusLine:
+    """Live status on the terminal, refreshed at most every `every_s` of wall time."""
+
+    def __init__(self, out=sys.stdout, every_s: float = 0.4):
+        self.out = out
+        self.every_s = every_s
+        self.tty = hasattr(out, "isatty") and out.isatty()
+        self._last = 0.0
+
+    def __call__(self, loop: HostLoop) -> None:
+        now = time.perf_counter()
+        if now - self._last < self.every_s:
+            return
+        self._last = now
+        y = loop.y
+        s = loop.session.stats() if loop.session is not None else {}
+        bad = s.get("crc_errors", 0) + s.get("bad_frames", 0)
+        text = (f"t={y[L.Y_TIME_S]:6.2f}s  n={y[L.Y_SPEED_RPM]:7.1f} r/min (ref {loop.operator.speed_ref_rpm:6.1f})"
+                f"  Ia={y[L.Y_IA_MEAN_A]:7.1f} A  If={y[L.Y_IF_A]:5.2f} A  Va={y[L.Y_VT_MEAN_V]:6.1f} V"
+                f"  alpha={y[L.Y_LAST_FIRE_ANGLE_DEG]:5.1f}  link {'LOST' if loop._link_lost else 'ok'}"
+                f" bad={bad} missed={loop.stats.missed_commands} late={loop.stats.deadline_misses}"
+                f"{'  TRIP ' + str(loop.last_cmd.trip_code) if loop.last_cmd.trip else ''}")
+        if self.tty:
+            self.out.write("\r" + text[:150].ljust(150))
+        else:
+            self.out.write(text + "\n")
+        self.out.flush()
+
+    def close(self) -> None:
+        if self.tty:
+            self.out.write("\n")
+            self.out.flush()
+
+
+def settling_report(rows: np.ndarray, t_from: float, t_to: float, band: float = 0.01) -> dict:
+    """Speed error against the operator reference over [t_from, t_to]: final error, and the time
+    after which the error stays within band x reference."""
+    t = rows[:, R["time_s"]]
+    sel = (t >= t_from) & (t <= t_to)
+    if not np.any(sel):
+        return {}
+    n = rows[sel, R["speed_rpm"]]
+    ref = rows[sel, R["op_speed_ref_rpm"]]
+    err = np.abs(n - ref)
+    tol = band * np.maximum(np.abs(ref), 1.0)
+    outside = np.nonzero(err > tol)[0]
+    ts = t[sel]
+    settled_at = ts[outside[-1] + 1] if len(outside) and outside[-1] + 1 < len(ts) else (ts[0] if not len(outside) else math.nan)
+    return {"final_error_rpm": float(n[-1] - ref[-1]), "settled_at_s": float(settled_at),
+            "max_error_rpm_after_settling": float(np.max(err[outside[-1] + 1:])) if len(outside) and outside[-1] + 1 < len(ts) else float(np.max(err))}
+
+
+def write_outputs(loop: HostLoop, out_dir: Path, title: str) -> dict:
+    out_dir.mkdir(parents=True, exist_ok=True)
+    rows = loop.rows()
+    rec = out_dir / "frames.csv"
+    with rec.open("w", newline="") as fh:
+        w = csv.writer(fh)
+        w.writerow(REC_COLUMNS)
+        for r in rows:
+            w.writerow([f"{v:.6g}" for v in r])
+    ev = out_dir / "events.csv"
+    with ev.open("w", newline="") as fh:
+        w = csv.writer(fh)
+        w.writerow(["time_s", "kind", "text"])
+        for e in loop.events:
+            w.writerow([f"{e[0]:.6f}", e[1], e[2]])
+    png = out_dir / "run.png"
+    plot_run(rows, png, title)
+    return {"frames": rec, "events": ev, "plot": png}
+
+
+def plot_run(rows: np.ndarray, path: Path, title: str) -> None:
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    t = rows[:, R["time_s"]]
+    fig, ax = plt.subplots(4, 1, sharex=True, figsize=(9, 9))
+    ax[0].plot(t, rows[:, R["speed_rpm"]], label="speed")
+    ax[0].plot(t, rows[:, R["op_speed_ref_rpm"]], "--", label="operator reference")
+    ax[0].set_ylabel("r/min")
+    ax[1].plot(t, rows[:, R["armature_current_A"]], lw=0.8, label="armature current (frame mean)")
+    ax[1].set_ylabel("A")
+    a1 = ax[1].twinx()
+    a1.plot(t, rows[:, R["field_current_A"]], color="tab:green", label="field current")
+    a1.set_ylabel("field A")
+    a1.legend(loc="lower right", fontsize=8)
+    ax[2].plot(t, rows[:, R["terminal_voltage_V"]], lw=0.8, label="armature voltage (frame mean)")
+    ax[2].plot(t, rows[:, R["emf_V"]], label="EMF")
+    ax[2].set_ylabel("V")
+    ax[3].plot(t, rows[:, R["firing_angle_deg"]], label="firing angle")
+    ax[3].set_ylabel("deg")
+    ax[3].set_xlabel("model time (s)")
+    for a in ax:
+        a.grid(True, alpha=0.3)
+        a.legend(loc="upper right", fontsize=8)
+    fig.suptitle(title)
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
+    plt.close(fig)
+
+
+def summary_lines(loop: HostLoop, timeline: Timeline, wall_s: float) -> list[str]:
+    rows = loop.rows()
+    lines = []
+    if len(rows) == 0:
+        return ["no frames were run"]
+    t = rows[:, R["time_s"]]
+    lines.append(f"frames {loop.stats.frames} ({t[-1]:.2f} s model time) in {wall_s:.2f} s wall "
+                 f"= {t[-1] / wall_s:.1f} x real time; commands {loop.stats.commands}, "
+                 f"frames without command {loop.stats.missed_commands}, link-loss events {loop.stats.link_loss_events}")
+    work = rows[:, R["host_work_us"]]
+    lines.append(f"host work per frame: median {np.median(work):.0f} us, p99 {np.percentile(work, 99):.0f} us "
+                 f"(decode + {loop.n_sub} model steps + record + encode)")
+    lines.append(f"peak armature current {np.max(np.abs(rows[:, R['armature_current_peak_A']])):.0f} A, "
+                 f"peak speed {np.max(np.abs(rows[:, R['speed_rpm']])):.0f} r/min, "
+                 f"end temperature {rows[-1, R['armature_temperature_C']]:.1f} C")
+    refs = [s for s in timeline.steps if s.what == "speed_ref_rpm" and s.value > 0]
+    loads = [s for s in timeline.steps if s.what == "load_torque_Nm" and s.value > 0]
+    if refs:
+        t_end = loads[0].t_s if loads else t[-1]
+        rep = settling_report(rows, refs[0].t_s, t_end)
+        if rep:
+            lines.append(f"speed to {refs[0].value:g} r/min: within 1 % from {rep['settled_at_s']:.2f} s, "
+                         f"error before the load step {rep['final_error_rpm']:+.2f} r/min")
+    if loads:
+        nxt = [s.t_s for s in timeline.steps if s.t_s > loads[0].t_s]
+        rep = settling_report(rows, loads[0].t_s, nxt[0] if nxt else t[-1])
+        if rep:
+            sel = (t >= loads[0].t_s) & (t <= (nxt[0] if nxt else t[-1]))
+            dip = np.min(rows[sel, R["speed_rpm"]] - rows[sel, R["op_speed_ref_rpm"]])
+            lines.append(f"load step {loads[0].value:.0f} N m at {loads[0].t_s:g} s: speed dip {dip:+.1f} r/min, "
+                         f"back within 1 % at {rep['settled_at_s']:.2f} s")
+    status = 0
+    for s_ in rows[:, R["model_status"]].astype(int):
+        status |= s_
+    flags = [name for bit, name in L.ST_NAMES.items() if status & bit]
+    lines.append(f"model flags seen: {', '.join(flags) if flags else 'none'}")
+    trips = [e for e in loop.events if e[1] == "trip"]
+    lines.append("controller trips: " + ("; ".join(f"{e[2]} at {e[0]:.3f} s" for e in trips) if trips else "none"))
+    return lines
+
+
+def send_bye(session) -> None:
+    try:
+        session.send_control(sig.CTRL_BYE)
+    except Exception:  # the peer may be gone already; nothing to save
+        pass
