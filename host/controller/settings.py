@@ -203,7 +203,7 @@ _k("sequencing.field_establish_fraction", "float", 0.8, "must be in 0..1", _betw
 
 # --- protections ------------------------------------------------------------------------------
 _k("protection.overcurrent.threshold_A", "float", REQUIRED, "must be > 0", _pos,
-   "Instantaneous overcurrent: |Ia| above this trips.")
+   "Instantaneous overcurrent: abs(Ia) above this trips.")
 _k("protection.overcurrent.delay_s", "float", 0.0, "must be in 0..1", _between(0, 1),
    "Time the overcurrent must persist (0 = same frame).")
 _k("protection.overload.rated_current_A", "float", REQUIRED, "must be > 0", _pos,
@@ -215,21 +215,21 @@ _k("protection.overload.trip_level_pu", "float", 1.1025, "must be in 0.5..4", _b
 _k("protection.overload.delay_s", "float", 0.0, "must be in 0..60", _between(0, 60),
    "Time the thermal image must stay above the trip level.")
 _k("protection.overspeed.threshold_rpm", "float", REQUIRED, "must be > 0", _pos,
-   "|speed| above this trips.")
+   "abs(tacho speed) above this trips.")
 _k("protection.overspeed.delay_s", "float", 0.02, "must be in 0..5", _between(0, 5),
    "Time the overspeed must persist.")
 _k("protection.field_loss.fraction", "float", 0.5, "must be in 0.05..1", _between(0.05, 1),
    "Field current below this fraction of its reference, while energised, counts as lost.")
 _k("protection.field_loss.delay_s", "float", 0.5, "must be in 0..30", _between(0, 30),
-   "Time the field loss must persist (also the time allowed to establish the field at start).")
+   "Time the field loss must persist (the start is guarded by sequencing.field_establish_timeout_s).")
 _k("protection.tacho_loss.threshold_rpm", "float", REQUIRED, "must be > 0", _pos,
-   "|EMF/(K*phi) - n_tacho| above this counts as implausible tacho.")
+   "abs(EMF/(K*phi) - n_tacho) above this counts as implausible tacho.")
 _k("protection.tacho_loss.delay_s", "float", 0.2, "must be in 0..10", _between(0, 10),
    "Time the tacho implausibility must persist.")
 _k("protection.tacho_loss.min_flux_pu", "float", 0.3, "must be in 0.05..1", _between(0.05, 1),
    "The tacho check runs only while the flux estimate is above this.")
 _k("protection.overvoltage.threshold_V", "float", REQUIRED, "must be > 0", _pos,
-   "|Va| above this trips.")
+   "abs(Va) above this trips.")
 _k("protection.overvoltage.delay_s", "float", 0.01, "must be in 0..5", _between(0, 5),
    "Time the overvoltage must persist.")
 _k("protection.mains_loss.threshold_V", "float", REQUIRED, "must be > 0", _pos,
@@ -245,7 +245,7 @@ _k("protection.contactor.timeout_s", "float", 0.5, "must be in 0..10", _between(
 
 # --- trip -------------------------------------------------------------------------------------
 _k("trip.suppress_timeout_s", "float", 0.02, "must be in 0..1", _between(0, 1),
-   "After a trip, pulses stay at the inversion end until |Ia| < sequencing.zero_current_A or "
+   "After a trip, pulses stay at the inversion end until abs(Ia) < sequencing.zero_current_A or "
    "this time has passed; then pulses block and the contactor opens.")
 
 KEYS: dict[str, Key] = {k.name: k for k in _KEYS}
