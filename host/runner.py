@@ -131,7 +131,7 @@ def settling_report(rows: np.ndarray, t_from: float, t_to: float, band: float = 
             "max_error_rpm_after_settling": float(np.max(err[outside[-1] + 1:])) if len(outside) and outside[-1] + 1 < len(ts) else float(np.max(err))}
 
 
-def write_outputs(loop: HostLoop, out_dir: Path, title: str) -> dict:
+def write_outputs(loop: HostLoop, out_dir: Path, title: str, plot: bool = True) -> dict:
     out_dir.mkdir(parents=True, exist_ok=True)
     rows = loop.rows()
     rec = out_dir / "frames.csv"
@@ -146,9 +146,11 @@ def write_outputs(loop: HostLoop, out_dir: Path, title: str) -> dict:
         w.writerow(["time_s", "kind", "text"])
         for e in loop.events:
             w.writerow([f"{e[0]:.6f}", e[1], e[2]])
-    png = out_dir / "run.png"
-    plot_run(rows, png, title)
-    return {"frames": rec, "events": ev, "plot": png}
+    files = {"frames": rec, "events": ev}
+    if plot:
+        files["plot"] = out_dir / "run.png"
+        plot_run(rows, files["plot"], title)
+    return files
 
 
 def plot_run(rows: np.ndarray, path: Path, title: str) -> None:
@@ -229,3 +231,45 @@ def send_bye(session) -> None:
         session.send_control(sig.CTRL_BYE)
     except Exception:  # the peer may be gone already; nothing to save
         pass
+
+
+def run_closed_loop(plant, link, *, encoding: str, paced: bool, timeline: Timeline, out_dir,
+                    watchdog_periods: int = 10, on_link_loss: str = "block", handshake_timeout_s: float = 20.0,
+                    plot: bool = True, out=sys.stdout) -> HostLoop:
+    """Handshake on `link`, run the timeline lockstep or paced, print the summary, write files."""
+    from .link import HostSession
+    from .loop import HostLoop
+
+    period_us = int(round(plant.derived["frame_period_us"]))
+    n_frames = int(timeline.end_s / (period_us * 1e-6)) + 1
+    session = HostSession(link, encoding=encoding, frame_period_us=period_us)
+    loop = HostLoop(plant, session, period_us, watchdog_periods=watchdog_periods, on_link_loss=on_link_loss)
+    peer = session.handshake(timeout_s=handshake_timeout_s)
+    supply = plant.converter["converter.name"] if plant.converter else "DC source"
+    print(f"{plant.machine['machine.name']} on {supply}; controller on {link.url} (protocol "
+          f"{peer.protocol_version}, {encoding}); frame {period_us} us = {loop.n_sub} model steps of "
+          f"{loop.p[L.P_DT_S] * 1e6:.2f} us; {'paced real time' if paced else 'lockstep'}", file=out)
+    loop.hooks.append(timeline)
+    status = StatusLine(out)
+    t0 = time.perf_counter()
+    try:
+        if paced:
+            loop.run_paced(n_frames, on_frame=status)
+        else:
+            loop.run_lockstep(n_frames, on_frame=status, command_timeout_s=max(0.2, 2.0))
+    finally:
+        wall = time.perf_counter() - t0
+        status.close()
+        send_bye(session)
+    print("\nsummary", file=out)
+    for line in summary_lines(loop, timeline, wall):
+        print("  " + line, file=out)
+    if paced and loop.stats.jitter_ns is not None and len(loop.stats.jitter_ns):
+        j = jitter_table(loop.stats.jitter_ns)
+        print(f"  paced: frame start lateness median {j['median_us']:.0f} us, p99 {j['p99_us']:.0f} us, "
+              f"max {j['max_us']:.0f} us; deadline misses {loop.stats.deadline_misses}", file=out)
+        print(f"  granted: {', '.join(f'{k} {v}' for k, v in loop.stats.granted.items() if not k.endswith('_before'))}", file=out)
+    if out_dir is not None:
+        files = write_outputs(loop, Path(out_dir), plant.machine["machine.name"] + " - closed loop", plot=plot)
+        print(f"  files: {', '.join(str(f) for f in files.values())}", file=out)
+    return loop
