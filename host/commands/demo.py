@@ -14,7 +14,7 @@ from ..errors import ConfigError, LinkError
 ROOT = Path(__file__).resolve().parents[2]
 DEFAULT_MACHINE = ROOT / "configs" / "machines" / "kestrel_f3_stand.toml"
 DEFAULT_CONVERTER = ROOT / "configs" / "converters" / "kestrel_f3_dual.toml"
-DEFAULT_CONTROLLER = ROOT / "configs" / "controllers" / "kestrel_f3_stand.toml"
+DEFAULT_CONTROLLER = ROOT / "configs" / "controllers" / "kestrel_f3_dual.toml"
 
 EXAMPLE = """examples:
   dcrig demo                       # F3 stand motor, lockstep, outputs in ./dcrig-demo/
