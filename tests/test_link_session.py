@@ -105,6 +105,13 @@ def test_host_handshake_names_signal_mismatch(cable):
         HostSession(host).handshake(T)
 
 
+def test_host_handshake_rejects_an_empty_signal_table(cable):
+    host, ctrl = cable
+    ctrl.send_frame(F.pack_hello(F.Hello(F.ROLE_CONTROLLER, F.ENC_FIXED, 1000, signals=())))
+    with pytest.raises(LinkError, match=r"signal list: signal command\.mode is missing at the peer"):
+        HostSession(host).handshake(T)
+
+
 def test_host_handshake_rejects_small_peer_buffer(cable):
     host, ctrl = cable
     ctrl.send_frame(F.pack_hello(F.Hello(F.ROLE_CONTROLLER, F.ENC_FIXED, 1000, max_payload=64)))

@@ -21,7 +21,7 @@ Public API:
     ROLE_HOST, ROLE_CONTROLLER
     class FrameError(ValueError)
     @dataclass Hello(role, encoding, frame_period_us, max_payload=MAX_PAYLOAD,
-                     protocol_version=PROTOCOL_VERSION, signals=signal_table(encoding))
+                     protocol_version=PROTOCOL_VERSION, signals=None -> signal_table(encoding))
     SignalSpec(kind, name, type, exp10, offset, bit, unit)       (a NamedTuple)
     signal_table(encoding) -> tuple[SignalSpec, ...]
     compare_signal_tables(ours, theirs) -> str | None      first difference, in words
@@ -44,7 +44,7 @@ from __future__ import annotations
 
 import math
 import struct
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import NamedTuple
 
 from host import signals as sig
@@ -199,10 +199,10 @@ class Hello:
     frame_period_us: int
     max_payload: int = MAX_PAYLOAD
     protocol_version: int = PROTOCOL_VERSION
-    signals: tuple = field(default=())
+    signals: tuple | None = None  # None: this side's own table for the encoding
 
     def __post_init__(self):
-        if not self.signals:
+        if self.signals is None:
             self.signals = signal_table(self.encoding)
 
 
