@@ -1,9 +1,8 @@
 """Measures the cost of one DriveController.step and prints a table (no assertions).
 
-Owns nothing the controller uses; a measuring aid only (belongs under tools/ once the lead
-agrees). Must never import serial, numba, rtmodel or host.link.
+A measuring aid only; must never import serial, numba, rtmodel or host.link.
 
-    python -m host.controller.timing [SETTINGS.toml ...] [--frames N]
+    python tools/bench_controller.py [SETTINGS.toml ...] [--frames N]
 """
 
 from __future__ import annotations
@@ -15,7 +14,9 @@ import sys
 import time
 from pathlib import Path
 
-from host.controller.drive import DriveController
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+from host.controller.drive import DriveController  # noqa: E402
 from host.controller.settings import load_settings
 from host.errors import DcrigError
 from host.signals import Feedback
