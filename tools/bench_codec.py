@@ -5,7 +5,7 @@ wire bytes plus turning one COMMAND's wire bytes back into a Command well under 
 together. Also measures one round trip over a pty virtual cable (two processes' worth of
 work in one: write, select, read, deframe), which includes kernel time.
 
-Usage: PYTHONPATH=. python tools/fwlib/bench_link.py [--n 20000]
+Usage: PYTHONPATH=. python tools/bench_codec.py [--n 20000]
 Must never be imported by the host; it is a script.
 """
 
