@@ -39,7 +39,7 @@ def _setup(tmp_path, conn, compound, duty, load_law, overrides=()):
     return plant, m
 
 
-def _compare(kernel, plant, m, s0, segments, t_end_s, label):
+def _compare(kernel, plant, m, s0, segments, t_end_s, label, i_f_rated_A=0.9):
     x = R.kernel_state(plant, m, s0)
     t, Y = R.run_kernel(kernel, plant, x, segments, t_end_s, SAMPLE_S)
     assert Y[-1, L.Y_STATUS] == 0 or not (int(Y[-1, L.Y_STATUS]) & L.ST_NONFINITE)
@@ -49,7 +49,7 @@ def _compare(kernel, plant, m, s0, segments, t_end_s, label):
     err_w = np.max(np.abs(Y[1:, L.Y_SPEED_RAD_S] - ref[1:, 2]))
     err_ia = np.max(np.abs(Y[1:, L.Y_IA_A] - ref[1:, 0]))
     err_if = np.max(np.abs(Y[1:, L.Y_IF_A] - ref[1:, 1]))
-    i_f_rated = 0.9  # rated field current of the test machines
+    i_f_rated = i_f_rated_A
     print(
         f"\n{label}: max |error| speed {err_w:.3g} rad/s ({err_w / m.w_rated:.2e} pu), "
         f"ia {err_ia:.3g} A ({err_ia / m.i_rated:.2e} pu), if {err_if:.3g} A ({err_if / i_f_rated:.2e} pu); "
@@ -125,3 +125,57 @@ def test_generating_load_switching_with_prime_mover(kernel, tmp_path, conn, comp
     # generating: power flows out of the terminals (motor convention: negative input power)
     assert Y[-1, L.Y_INPUT_POWER_W] < -0.2 * 440.0 * 56.0 * 0.5
     assert np.all(Y[1:, L.Y_SPEED_RAD_S] == w)
+
+
+DEMO = sorted(p.stem for p in (R.Path(__file__).resolve().parents[1] / "configs" / "machines").glob("*.toml"))
+assert DEMO, "no machine configs found"
+
+
+@pytest.mark.parametrize("stem", DEMO)
+def test_demo_machine_configs(kernel, stem):
+    """Every shipped machine config, its own inputs: motors start from standstill (field
+    established) through a starting resistor (source_ohm, limiting the inrush to ~2.5 x rated)
+    with their configured load, then take a 20 % load-torque step; generators start at their
+    built-up (or separately excited) open-circuit point and have their configured load switched
+    on. The reference has no armature reaction; a config with one is reported, not skipped."""
+    from conftest import MACHINES, make_plant
+
+    cfg = load("machine", MACHINES / f"{stem}.toml")
+    v = cfg.values
+    assert not v["machine.armature_reaction.armature_current_A"], "reference lacks armature reaction"
+    motor = v["machine.duty"] == "motor"
+    overrides = []
+    if motor:
+        r_start = v["machine.rated_voltage_V"] / (2.5 * v["machine.rated_current_A"])
+        overrides.append(f"terminal.source_ohm={r_start}")
+    plant = make_plant(stem, overrides=overrides)
+    m = R.machine_from_config(load("machine", MACHINES / f"{stem}.toml", overrides).values)
+    u0 = plant.new_inputs()
+    inp = R.Inputs(vs_V=u0[L.U_VT_V], source_ohm=v["terminal.source_ohm"] if not motor else r_start,
+                   contactor=u0[L.U_CONTACTOR] > 0.5, load_ohm=u0[L.U_LOAD_OHM], field_V=u0[L.U_FIELD_V],
+                   load_torque_Nm=u0[L.U_LOAD_TORQUE_NM], prime_rad_s=u0[L.U_PRIME_SPEED_RAD_S])
+    t_amb = plant.new_state()[L.X_TEMP_ARM_C]
+    if motor:
+        if m.conn == R.SEPARATE:
+            ish0 = inp.field_V / m.rsh
+        elif m.conn == R.SERIES:
+            ish0 = 0.0
+        else:
+            ish0 = inp.vs_V / m.rsh  # at standstill, before current flows, the field sees vs
+        s0 = [0.0, ish0, 0.0, t_amb]
+        t_end = 1.0
+        segs = [(0.0, inp), (0.6, inp.with_(load_torque_Nm=1.2 * inp.load_torque_Nm))]
+    else:
+        w = inp.prime_rad_s
+        if m.conn == R.SEPARATE:
+            ish0 = inp.field_V / m.rsh
+            s0 = [0.0, ish0, w, t_amb]
+        elif m.conn == R.SERIES:
+            s0 = [0.0, 0.0, w, t_amb]
+        else:
+            i0 = R.open_circuit_field_A(m, w, t_amb)
+            s0 = [-i0, i0, w, t_amb]
+        t_end = 0.5
+        segs = [(0.0, inp.with_(load_ohm=0.0, contactor=False)), (0.05, inp)]
+    _compare(kernel, plant, m, s0, segs, t_end, f"demo {stem}",
+             i_f_rated_A=v["machine.rated_field_current_A"] or m.i_rated)
