@@ -602,6 +602,19 @@ def solve_generator(
         raise ConfigError("--field-reversed: a separately excited field is reversed by a negative --field-voltage")
     vf = _field_voltage(plant, c, field_voltage_V)
     op = OpPoint(plant, c, "generator", mode, None)
+    conn_name = plant.machine["machine.connection"]
+    if conn_name.startswith("compound"):
+        kind = plant.machine["machine.compound"]
+        other = "differential" if kind == "cumulative" else "cumulative"
+        op.notes.append(
+            f"machine.compound = '{kind}' is defined for motoring current; generating reverses the "
+            f"armature current, so as connected this machine generates as a {other} compound"
+        )
+    if conn_name == "series" and not field_reversed:
+        op.notes.append(
+            "series field as connected for motoring: generating in the same direction of rotation "
+            "reverses its current (use --field-reversed for the braking connection)"
+        )
     if w == 0.0:
         return _none(op, "a generator at standstill generates nothing")
     s = 1.0 if w > 0.0 else -1.0  # the residual EMF's sign sets the build-up direction
