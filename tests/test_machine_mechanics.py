@@ -189,3 +189,15 @@ def test_coupling_break_removes_load_and_load_inertia(kernel, tmp_path):
     print(f"\ncoupling break: max |error| {err:.2e} rad/s (speed at break {w1:.3f} rad/s)")
     assert err < 1e-6 * w0
     assert np.all(Y[t > t_break, L.Y_LOAD_TORQUE_NM] == 0.0)
+
+
+def test_passive_constant_load_brings_light_shaft_to_rest(kernel, tmp_path):
+    """A passive constant load on a light shaft (J = 0.01 kg m^2, 100 N m: the smoothing band's
+    time constant J w_s / T = 5 us is below the 20 us step) must still stop the shaft: a
+    passive torque can only take energy out. Closed form: at rest after w0 J / T = 10 us."""
+    plant, m = _plant(tmp_path, law="constant", over=("mechanics.inertia_kgm2=0.01",))
+    t, Y = _coast(kernel, plant, m, 0.1, 0.05, 100.0, sample=2e-5)
+    w = Y[:, L.Y_SPEED_RAD_S]
+    print(f"\nlight shaft, passive 100 N m from 0.1 rad/s: speed after 50 ms {w[-1]:.4f} rad/s "
+          f"(smoothing band {m.w_smooth} rad/s)")
+    assert np.all(np.abs(w[t > 1e-3]) <= m.w_smooth)
