@@ -295,7 +295,7 @@ def load_avg() -> str:
 
 def md(head, rows) -> str:
     out = ["| " + " | ".join(head) + " |", "|" + "|".join("---" for _ in head) + "|"]
-    out += ["| " + " | ".join(str(c) for c in r) + " |" for r in rows]
+    out += ["| " + " | ".join(str(c).replace("|", "/") for c in r) + " |" for r in rows]
     return "\n".join(out)
 
 
@@ -314,8 +314,8 @@ def main(argv=None) -> int:
     ap.add_argument("--settings", default=str(SETTINGS), help="emulated controller settings")
     args = ap.parse_args(argv)
     paced_s = args.paced_seconds if args.paced_seconds is not None else (2.0 if args.quick else 60.0)
-    n_lock = args.frames or (200 if args.quick else 3000)
-    n_echo = args.echo or (300 if args.quick else 5000)
+    n_lock = args.frames if args.frames is not None else (200 if args.quick else 3000)
+    n_echo = args.echo if args.echo is not None else (300 if args.quick else 5000)
     if paced_s <= 0 or n_lock < 1 or n_echo < 1:
         print("error: --paced-seconds, --frames and --echo must be positive", file=sys.stderr)
         return 2

@@ -296,7 +296,7 @@ class Table:
         self.rows: list[tuple] = []
 
     def add(self, *cells):
-        self.rows.append(tuple(str(c) for c in cells))
+        self.rows.append(tuple(str(c).replace("|", "/") for c in cells))  # a cell never splits the row
 
     def markdown(self) -> str:
         out = ["| " + " | ".join(self.HEAD) + " |", "|" + "|".join("---" for _ in self.HEAD) + "|"]
@@ -317,8 +317,8 @@ def main(argv=None) -> int:
     ap.add_argument("--no-c", action="store_true", help="skip the C anchor")
     ap.add_argument("--no-pin", action="store_true", help="do not pin this process to one CPU")
     args = ap.parse_args(argv)
-    repeats = args.repeats or (2 if args.quick else 5)
-    sim_s = args.sim_seconds or (0.2 if args.quick else 10.0)
+    repeats = args.repeats if args.repeats is not None else (2 if args.quick else 5)
+    sim_s = args.sim_seconds if args.sim_seconds is not None else (0.2 if args.quick else 10.0)
     if repeats < 1 or not sim_s > 0:
         print("error: --repeats must be >= 1 and --sim-seconds > 0", file=sys.stderr)
         return 2
@@ -443,7 +443,7 @@ def main(argv=None) -> int:
                 table.add("numba / C", "F3 stand (separately excited)", "DC source", f"{dt * 1e6:g}", n_sub,
                           f"{sps_n / sps_c:.2f}", "-", "-",
                           f"speed ratio numba/C {sps_n / sps_c:.2f} (the kernel also carries every connection "
-                          f"and supply; C is this one case); final state |numba - C| / |value|: {', '.join(diffs)}")
+                          f"and supply; C is this one case); final state relative difference abs(numba - C) / abs(value): {', '.join(diffs)}")
 
         rtf = rtf_10.get("switched bridge")
         if rtf is not None:
