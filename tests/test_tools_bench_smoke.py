@@ -75,15 +75,15 @@ def test_both_benchmarks_print_their_tables(kernel):
                  "DC source, compound_short", "switched bridge, frame", "averaged bridge, frame",
                  "per call, n_sub=1", "cached start (project cache)", "C anchor (cc -O2)", "numba / C"):
         assert want in names, f"{want!r} missing from {names}"
-    assert all(len(r) == 9 for r in rows), "every row has the header's nine cells"
+    assert all(len(r) == 10 for r in rows), "every row has the header's ten cells"
     for r in rows:
         if r[0].startswith(("DC source", "switched bridge", "averaged bridge")):
-            assert float(r[6]) > 0.0 and "nonfinite" not in r[8], r
+            assert float(r[6]) > 0.0 and "nonfinite" not in r[9], r
     # the numba kernel and the independent C integration end in the same state: Heun's method
     # with the same equations differs only by floating-point rounding order (from memory: a
     # few ulp per step, far below 1e-6 relative over 0.05 s of simulated time)
     cmp_row = next(r for r in rows if r[0] == "numba / C")
-    diffs = dict(re.findall(r"(ia|if|speed|temp|angle) ([0-9.e+-]+)", cmp_row[8]))
+    diffs = dict(re.findall(r"(ia|if|speed|temp|angle) ([0-9.e+-]+)", cmp_row[9]))
     assert set(diffs) == {"ia", "if", "speed", "temp", "angle"}, cmp_row
     assert all(float(v) < 1e-6 for v in diffs.values()), diffs
     assert re.search(r"target: switched bridge at 10 us >= 300x real time on one core: measured \d+x -> (MET|NOT MET)",

@@ -346,6 +346,9 @@ def main(argv=None) -> int:
         rows.append((f"lockstep with the emulated controller process ({r['period_us']} us frame, "
                      f"{r['n_sub']} steps)", r["encoding"], f"{r['frames'] - WARMUP_FRAMES} (+{WARMUP_FRAMES} warm-up)",
                      f"{_rate(rate)} = {rate / echo_hz:.0%} of echo", work,
+                     f"one frame {1e6 / rate:.0f} us = host {r.get('own_median_us', NAN):.0f} us (median) + cable and "
+                     f"controller process {1e6 / rate - r.get('own_median_us', NAN):.0f} us (the echo round trip alone "
+                     f"is {1e6 / echo_hz:.0f} us); "
                      f"{r['frames'] * r['period_us'] * 1e-6:.1f} s model time, {rate * r['period_us'] * 1e-6:.1f}x real "
                      f"time; commands missed {r['missed_commands']}, trips {r['trips']}, end speed {r['speed_rpm']:.0f} r/min"))
     j = paced.get("jitter") or {}

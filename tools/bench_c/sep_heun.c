@@ -22,7 +22,7 @@
  *
  * Input: a parameter file (argv[1]) of lines "name value" or "name n v1 .. vn" (arrays), as
  * written by tools/bench_model.py. Output on stdout, one "name value" per line: the final
- * state and the best wall time of `repeats` runs of n_frames x n_sub steps, each run from the
+ * state and the best wall and CPU time of `repeats` runs of n_frames x n_sub steps, each run from the
  * same initial state. Exit status 2 with one line on stderr for a bad parameter file.
  */
 #define _POSIX_C_SOURCE 199309L
@@ -196,21 +196,26 @@ int main(int argc, char **argv)
         return fail(path, "n_frames/n_sub/repeats", "must be at least 1");
 
     State s = s0;
-    double best_ns = -1.0;
+    double best_ns = -1.0, best_cpu_ns = -1.0;
     for (long r = 0; r < repeats; r++) {
         s = s0;
-        struct timespec a, b;
+        struct timespec a, b, ca, cb;
         clock_gettime(CLOCK_MONOTONIC, &a);
+        clock_gettime(CLOCK_THREAD_CPUTIME_ID, &ca);
         for (long fr = 0; fr < n_frames; fr++)
             for (long k = 0; k < n_sub; k++)
                 step(&p, &s);
+        clock_gettime(CLOCK_THREAD_CPUTIME_ID, &cb);
         clock_gettime(CLOCK_MONOTONIC, &b);
         double ns = (b.tv_sec - a.tv_sec) * 1e9 + (b.tv_nsec - a.tv_nsec);
+        double cpu = (cb.tv_sec - ca.tv_sec) * 1e9 + (cb.tv_nsec - ca.tv_nsec);
         if (best_ns < 0.0 || ns < best_ns)
             best_ns = ns;
+        if (best_cpu_ns < 0.0 || cpu < best_cpu_ns)
+            best_cpu_ns = cpu;
     }
     printf("ia_A %.17g\nif_A %.17g\nw_rad_s %.17g\nangle_rad %.17g\ntemp_C %.17g\nt_s %.17g\n",
            s.ia, s.if_, s.w, s.angle, s.temp, s.t);
-    printf("best_ns %.17g\nsteps %ld\n", best_ns, n_frames * n_sub);
+    printf("best_ns %.17g\nbest_cpu_ns %.17g\nsteps %ld\n", best_ns, best_cpu_ns, n_frames * n_sub);
     return 0;
 }
