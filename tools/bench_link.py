@@ -209,67 +209,68 @@ def closed_loop(encoding: str, n_frames: int, period_us: int | None, paced: bool
     plant = pack(load("machine", MACHINE), load("converter", CONVERTER))
     period = period_us or int(round(plant.derived["frame_period_us"]))
     res: dict = {"encoding": encoding, "period_us": period}
-    with VirtualCable() as cable:
+    with VirtualCable() as cable, cable.host_link() as link:
+        session = HostSession(link, encoding=encoding, frame_period_us=period)
+        # HostLoop makes the first kernel call (a compile when the numba cache is stale):
+        # before the controller starts, so its handshake timeout cannot run out meanwhile
+        loop = HostLoop(plant, session, period, max_frames=n_frames + WARMUP_FRAMES + 8)
+        timer = FrameTimer(link, session)
         proc = subprocess.Popen(
             [sys.executable, "-m", "host.cli", "controller", "--link", cable.slave_path,
              "--settings", str(settings), "--quiet", "--idle-timeout", "30"],
             env=_env(), cwd=str(ROOT),
         )  # fmt: skip
         try:
-            with cable.host_link() as link:
-                session = HostSession(link, encoding=encoding, frame_period_us=period)
-                loop = HostLoop(plant, session, period, max_frames=n_frames + WARMUP_FRAMES + 8)
-                timer = FrameTimer(link, session)
-                session.handshake(timeout_s=60.0)
-                loop.hooks.append(drive_timeline(plant))
-                stamps = np.zeros(n_frames + WARMUP_FRAMES, dtype=np.int64)
-                count = [0]
+            session.handshake(timeout_s=60.0)
+            loop.hooks.append(drive_timeline(plant))
+            stamps = np.zeros(n_frames + WARMUP_FRAMES, dtype=np.int64)
+            count = [0]
 
-                def on_frame(lp):
-                    k = count[0]
-                    if k < len(stamps):
-                        stamps[k] = time.perf_counter_ns()
-                    count[0] = k + 1
-                    if k + 1 == WARMUP_FRAMES:
-                        timer.enabled = True
+            def on_frame(lp):
+                k = count[0]
+                if k < len(stamps):
+                    stamps[k] = time.perf_counter_ns()
+                count[0] = k + 1
+                if k + 1 == WARMUP_FRAMES:
+                    timer.enabled = True
 
-                try:
-                    if paced:
-                        loop.run_paced(n_frames, on_frame=on_frame, realtime=True)
-                    else:
-                        loop.run_lockstep(n_frames + WARMUP_FRAMES, on_frame=on_frame, command_timeout_s=2.0)
-                finally:
-                    send_bye(session)
-                    # let the controller finish its backlog and leave before our end closes
-                    _stop(proc, 20.0)
-                rows = loop.rows()
-                res["frames"] = loop.stats.frames
-                res["n_sub"] = loop.n_sub
-                res["missed_commands"] = loop.stats.missed_commands
-                res["link_loss_events"] = loop.stats.link_loss_events
-                trips = [e for e in loop.events if e[1] == "trip"]
-                res["trips"] = len(trips)
-                work = rows[WARMUP_FRAMES:, R["host_work_us"]] if not paced else rows[:, R["host_work_us"]]
-                if len(work):
-                    res["work_median_us"] = float(np.median(work))
-                    res["work_p99_us"] = float(np.percentile(work, 99))
-                    res["work_max_us"] = float(np.max(work))
-                if not paced:
-                    done = min(count[0], len(stamps))
-                    if done > WARMUP_FRAMES:
-                        span = (stamps[done - 1] - stamps[WARMUP_FRAMES - 1]) * 1e-9
-                        res["rate_hz"] = (done - WARMUP_FRAMES) / span
-                    for key, samples in (("own", timer.wall_ns), ("cpu", timer.cpu_ns)):
-                        a = np.asarray(samples, dtype=float) * 1e-3
-                        if len(a):
-                            res[f"{key}_median_us"] = float(np.median(a))
-                            res[f"{key}_p99_us"] = float(np.percentile(a, 99))
-                            res[f"{key}_max_us"] = float(np.max(a))
+            try:
+                if paced:
+                    loop.run_paced(n_frames, on_frame=on_frame, realtime=True)
                 else:
-                    res["jitter"] = jitter_table(loop.stats.jitter_ns)
-                    res["deadline_misses"] = loop.stats.deadline_misses
-                    res["granted"] = {k: v for k, v in loop.stats.granted.items() if not k.endswith("_before")}
-                res["speed_rpm"] = float(rows[-1, R["speed_rpm"]]) if len(rows) else float("nan")
+                    loop.run_lockstep(n_frames + WARMUP_FRAMES, on_frame=on_frame, command_timeout_s=2.0)
+            finally:
+                send_bye(session)
+                # let the controller finish its backlog and leave before our end closes
+                _stop(proc, 20.0)
+            rows = loop.rows()
+            res["frames"] = loop.stats.frames
+            res["n_sub"] = loop.n_sub
+            res["missed_commands"] = loop.stats.missed_commands
+            res["link_loss_events"] = loop.stats.link_loss_events
+            trips = [e for e in loop.events if e[1] == "trip"]
+            res["trips"] = len(trips)
+            work = rows[WARMUP_FRAMES:, R["host_work_us"]] if not paced else rows[:, R["host_work_us"]]
+            if len(work):
+                res["work_median_us"] = float(np.median(work))
+                res["work_p99_us"] = float(np.percentile(work, 99))
+                res["work_max_us"] = float(np.max(work))
+            if not paced:
+                done = min(count[0], len(stamps))
+                if done > WARMUP_FRAMES:
+                    span = (stamps[done - 1] - stamps[WARMUP_FRAMES - 1]) * 1e-9
+                    res["rate_hz"] = (done - WARMUP_FRAMES) / span
+                for key, samples in (("own", timer.wall_ns), ("cpu", timer.cpu_ns)):
+                    a = np.asarray(samples, dtype=float) * 1e-3
+                    if len(a):
+                        res[f"{key}_median_us"] = float(np.median(a))
+                        res[f"{key}_p99_us"] = float(np.percentile(a, 99))
+                        res[f"{key}_max_us"] = float(np.max(a))
+            else:
+                res["jitter"] = jitter_table(loop.stats.jitter_ns)
+                res["deadline_misses"] = loop.stats.deadline_misses
+                res["granted"] = {k: v for k, v in loop.stats.granted.items() if not k.endswith("_before")}
+            res["speed_rpm"] = float(rows[-1, R["speed_rpm"]]) if len(rows) else float("nan")
         finally:
             _stop(proc)
     return res

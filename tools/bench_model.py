@@ -366,7 +366,11 @@ def main(argv=None) -> int:
                           f"fresh process total {r['process_s']:.2f} s ({note})")
 
         pin = "not pinned (--no-pin)" if args.no_pin else pin_one_core()
-        from rtmodel.kernel import step_frame as step
+        try:
+            from rtmodel.kernel import step_frame as step
+        except ImportError as err:  # the model is being edited: say so in one line
+            print(f"error: rtmodel.kernel does not import: {err}", file=sys.stderr)
+            return 1
 
         # warm the dispatcher (compile or cache load) outside every timed region
         warm = make_plant("kestrel_f3_stand", None, 20.0)
