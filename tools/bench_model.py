@@ -197,6 +197,11 @@ print(json.dumps({"import_kernel_s": t2 - t1, "first_call_s": t4 - t3, "in_proce
 """
 
 
+def model_sources_stamp() -> tuple:
+    """Modification times of the model's sources, to notice an edit between two fresh starts."""
+    return tuple((f.name, f.stat().st_mtime_ns) for f in sorted((ROOT / "rtmodel").glob("*.py")))
+
+
 def fresh_start(cache_dir: str | None) -> dict:
     """Import the kernel and make the first call in a fresh interpreter; times in s."""
     env = dict(os.environ)
@@ -221,6 +226,7 @@ def c_params(plant, x, u, n_frames: int, n_sub: int, repeats: int) -> str:
         raise ValueError("the C anchor covers a machine without armature reaction, constant load, no load resistor")
     n = int(p[L.P_MAG_N])
     t_ref = p[L.P_TEMP_REF_C]
+    smooth = p[L.P_FRICTION_SMOOTH_RAD_S] if hasattr(L, "P_FRICTION_SMOOTH_RAD_S") else None
     vals = {
         "dt_s": p[L.P_DT_S], "ra_ohm": p[L.P_RA_OHM], "la_H": p[L.P_LA_H],
         "brush_drop_V": p[L.P_BRUSH_DROP_V], "brush_knee_A": p[L.P_BRUSH_KNEE_A],
@@ -228,7 +234,10 @@ def c_params(plant, x, u, n_frames: int, n_sub: int, repeats: int) -> str:
         "lf_leak_H": p[L.P_LF_LEAK_H], "lm0_H": p[L.P_LM0_H], "slope0_V_per_A": p[L.P_MAG_SLOPE0],
         "w_curve_rad_s": p[L.P_MAG_SPEED_RAD_S], "t_ref_C": t_ref,
         "j_total_kgm2": p[L.P_J_KGM2] + p[L.P_J_LOAD_KGM2], "viscous_Nm_s": p[L.P_VISCOUS_NM_S],
-        "coulomb_Nm": p[L.P_COULOMB_NM], "w_smooth_rad_s": p[L.P_FRICTION_SMOOTH_RAD_S],
+        "coulomb_Nm": p[L.P_COULOMB_NM],
+        # the kernel's law for passive torques: smoothed sign (older layouts) or projection
+        "mechanics_law": 0 if smooth is not None else 1, "w_smooth_rad_s": smooth or 0.0,
+        "field_sign": p[L.P_FIELD_SIGN] if hasattr(L, "P_FIELD_SIGN") else 1.0,
         "load_torque_Nm": u[L.U_LOAD_TORQUE_NM], "v_source_V": u[L.U_VT_V],
         "r_source_ohm": p[L.P_DC_SOURCE_OHM], "v_field_V": u[L.U_FIELD_V],
         "thermal_rise_K": p[L.P_THERMAL_RISE_K], "thermal_tau_s": p[L.P_THERMAL_TAU_S],
@@ -357,7 +366,12 @@ def main(argv=None) -> int:
             os.makedirs(cache)
             for label, note in (("first-run compile", "empty NUMBA_CACHE_DIR"),
                                 ("cached start", "same NUMBA_CACHE_DIR, second fresh process")):
+                before = model_sources_stamp()
                 r = fresh_start(cache)
+                if model_sources_stamp() != before or (label == "cached start" and stamp_first != before):
+                    # numba keys its cache on the source files: an edit in between forces a compile
+                    note += "; INVALID: rtmodel sources changed during the run (being edited?), rerun"
+                stamp_first = before
                 if "error" in r:
                     table.add(label, "F3 stand", "-", "-", "-", "-", "-", "-", "-", "failed: " + r["error"])
                     continue

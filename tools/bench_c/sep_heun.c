@@ -10,8 +10,14 @@
  *
  *   La dia/dt            = V - Rsrc ia - (Ra(T) ia + E + Vb clip(ia/knee, -1, 1))
  *   (Lfl + Lm(if)) dif/dt = Vf - Rf_hot if
- *   E = E_curve(if) w / w_curve,  Lm = Lm0 E'(if) / E'_max,  Te = E_curve(if)/w_curve * ia
- *   J dw/dt = Te - B w - Tc clip(w/w_s) - T_load clip(w/w_s)          (constant-torque load)
+ *   E = E_curve(s if) w / w_curve,  Lm = Lm0 E'(s if) / E'_max,  Te = E_curve(s if)/w_curve * ia
+ *   (s = field_sign: -1 for a field connected the other way round)
+ *   J dw/dt = Te - B w - passive torques (Coulomb friction Tc and the constant load T_load),
+ *   the passive ones by one of two laws, as the kernel version in use has it (mechanics_law):
+ *     0: smoothed sign, Tc clip(w/w_s) + T_load clip(w/w_s), inside both Heun stages;
+ *     1: projection after each stage: the shaft slows by dt (Tc + |T_load|)/J in its
+ *        direction of motion, stops rather than reverse, and stays at rest while the active
+ *        change is within that (break-away), the stages carrying only the active torques.
  *   Ra(T) = Ra_ref (235 + T)/(235 + T_ref)                             (IEC 60034-1 copper)
  *   dT/dt = (rise ia^2 (235 + T)/loss_rated - (T - T_amb)) / tau       (explicit, per step)
  *
@@ -37,7 +43,8 @@
 
 typedef struct {
     double dt, ra, la, vb, knee, rf_hot, lf_leak, lm0, slope0, w_curve, t_ref;
-    double j_total, viscous, coulomb, w_smooth, t_load;
+    double j_total, viscous, coulomb, w_smooth, t_load, field_sign;
+    int law;
     double v_src, r_src, v_field;
     double rise, tau_th, t_amb, loss_rated;
     int frozen;
@@ -91,21 +98,40 @@ static void curve(const Params *p, double i, double *e, double *de)
 
 static double clip1(double x) { return x > 1.0 ? 1.0 : (x < -1.0 ? -1.0 : x); }
 
+/* law 1: speed after a step whose active change gave w_free, passive torques worth dv */
+static double passive(double w0, double w_free, double dv)
+{
+    if (dv <= 0.0)
+        return w_free;
+    if (w0 > 0.0 || (w0 == 0.0 && w_free > dv)) {
+        double w = w_free - dv;
+        return w > 0.0 ? w : 0.0;
+    }
+    if (w0 < 0.0 || (w0 == 0.0 && w_free < -dv)) {
+        double w = w_free + dv;
+        return w < 0.0 ? w : 0.0;
+    }
+    return 0.0;
+}
+
 /* derivatives at (ia, if, w); also the electrical torque */
 static void deriv(const Params *p, double ra, double ia, double if_, double w,
                   double *dia, double *dif, double *dw, double *te)
 {
     double e_c, de;
-    curve(p, if_, &e_c, &de);
+    curve(p, p->field_sign * if_, &e_c, &de);
     double kphi = e_c / p->w_curve;
     double lm = p->lm0 * de / p->slope0;
     double v_arm = ra * ia + kphi * w + p->vb * clip1(ia / p->knee);
     *dia = (p->v_src - p->r_src * ia - v_arm) / p->la;
     *dif = (p->v_field - p->rf_hot * if_) / (p->lf_leak + lm);
     *te = kphi * ia;
-    double xf = clip1(w / p->w_smooth);
-    double tf = p->viscous * w + p->coulomb * xf;
-    *dw = (*te - tf - p->t_load * xf) / p->j_total;
+    if (p->law == 0) {
+        double xf = clip1(w / p->w_smooth);
+        *dw = (*te - p->viscous * w - p->coulomb * xf - p->t_load * xf) / p->j_total;
+    } else {
+        *dw = (*te - p->viscous * w) / p->j_total;
+    }
 }
 
 static void step(const Params *p, State *s)
@@ -114,10 +140,15 @@ static void step(const Params *p, State *s)
     double ra = p->ra * (COPPER_K + s->temp) / (COPPER_K + p->t_ref);
     double d1, d2, dw, te, e1, e2, dw2, te2;
     deriv(p, ra, s->ia, s->if_, s->w, &d1, &d2, &dw, &te);
+    double dv = p->law == 1 ? dt * (p->coulomb + fabs(p->t_load)) / p->j_total : 0.0;
     double iap = s->ia + dt * d1, ifp = s->if_ + dt * d2, wp = s->w + dt * dw;
+    if (p->law == 1)
+        wp = passive(s->w, wp, dv);
     deriv(p, ra, iap, ifp, wp, &e1, &e2, &dw2, &te2);
     double h2 = 0.5 * dt;
     double wn = s->w + h2 * (dw + dw2);
+    if (p->law == 1)
+        wn = passive(s->w, wn, dv);
     s->angle += h2 * (s->w + wn);
     s->ia += h2 * (d1 + e1);
     s->if_ += h2 * (d2 + e2);
@@ -181,7 +212,7 @@ int main(int argc, char **argv)
         KEY("ambient_C", p.t_amb); KEY("loss_rated", p.loss_rated); KEY("thermal_frozen", p.frozen);
         KEY("ia0_A", s0.ia); KEY("if0_A", s0.if_); KEY("w0_rad_s", s0.w); KEY("angle0_rad", s0.angle);
         KEY("temp0_C", s0.temp); KEY("n_frames", n_frames); KEY("n_sub", n_sub);
-        KEY("repeats", repeats);
+        KEY("repeats", repeats); KEY("field_sign", p.field_sign); KEY("mechanics_law", p.law);
         else
             return fail(path, name, "unknown parameter");
 #undef KEY
@@ -190,8 +221,12 @@ int main(int argc, char **argv)
     if (seen_curve != 3)
         return fail(path, "curve_i/curve_e/curve_d", "all three tables are required");
     if (p.dt <= 0.0 || p.la <= 0.0 || p.knee <= 0.0 || p.j_total <= 0.0 || p.w_curve <= 0.0
-        || p.slope0 <= 0.0 || p.w_smooth <= 0.0 || p.tau_th <= 0.0 || p.loss_rated <= 0.0)
+        || p.slope0 <= 0.0 || (p.law == 0 && p.w_smooth <= 0.0) || p.tau_th <= 0.0 || p.loss_rated <= 0.0)
         return fail(path, "dt_s, la_H, brush_knee_A, j_total_kgm2, ...", "must be positive");
+    if (p.field_sign != 1.0 && p.field_sign != -1.0)
+        return fail(path, "field_sign", "must be 1 or -1");
+    if (p.law != 0 && p.law != 1)
+        return fail(path, "mechanics_law", "must be 0 (smoothed sign) or 1 (passive projection)");
     if (n_frames < 1 || n_sub < 1 || repeats < 1)
         return fail(path, "n_frames/n_sub/repeats", "must be at least 1");
 
