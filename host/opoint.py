@@ -23,7 +23,7 @@ Equations (motor convention: i1 = line current into the + terminal; rtmodel/kern
     short     ise = i1, Varm = Vt - Rse i1,          ish = Varm / Rsh, ia = i1 - ish
                                                       (field sees the voltage inside the series field)
 
-Mechanics in steady state: Te = T_friction(w) + T_load, T_friction = b w + Tc clip(w / w_smooth).
+Mechanics in steady state: Te = T_friction(w) + T_load, T_friction = b w + Tc sign(w) (the kernel holds a shaft at rest against torques up to Tc).
 Ra is copper-corrected to the armature's initial temperature (or arm_temp_C), the fields to
 field_temp_C, with the IEC 60034-1 copper relation, as in host.params.
 
@@ -77,7 +77,6 @@ class Circuit:
     wc: float
     visc: float
     coul: float
-    wsm: float
     p: np.ndarray
     arm_temp_C: float
 
@@ -97,7 +96,7 @@ class Circuit:
         return self.vb * _clip1(ia / self.knee)
 
     def friction(self, w):
-        return self.visc * w + self.coul * _clip1(w / self.wsm)
+        return self.visc * w + self.coul * (1.0 if w > 0 else (-1.0 if w < 0 else 0.0))
 
     def curve(self, ieff):
         e, _ = curve_emf_py(self.p, ieff)
@@ -138,7 +137,6 @@ def circuit(plant: Plant, arm_temp_C: float | None = None, field_reversed: bool 
         wc=float(p[L.P_MAG_SPEED_RAD_S]),
         visc=float(p[L.P_VISCOUS_NM_S]),
         coul=float(p[L.P_COULOMB_NM]),
-        wsm=float(p[L.P_FRICTION_SMOOTH_RAD_S]),
         p=p,
         arm_temp_C=t_a,
     )

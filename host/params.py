@@ -59,6 +59,7 @@ def pack(machine: Config, converter: Config | None = None) -> Plant:
     series = conn == L.CONN_SERIES
     p[L.P_CONNECTION] = conn
     p[L.P_COMPOUND_SIGN] = 1.0 if v["machine.compound"] == "cumulative" else -1.0
+    p[L.P_FIELD_SIGN] = -1.0 if v["machine.field_reversed"] else 1.0
     if series:
         p[L.P_COMPOUND_SIGN] = 1.0
         p[L.P_SE_TURNS_RATIO] = 1.0  # the curve is in series-field amperes
@@ -95,7 +96,6 @@ def pack(machine: Config, converter: Config | None = None) -> Plant:
     p[L.P_J_LOAD_KGM2] = v["mechanics.load_inertia_kgm2"]
     p[L.P_VISCOUS_NM_S] = v["mechanics.viscous_Nm_per_rad_s"]
     p[L.P_COULOMB_NM] = v["mechanics.coulomb_Nm"]
-    p[L.P_FRICTION_SMOOTH_RAD_S] = v["mechanics.friction_smooth_rad_s"]
     p[L.P_LOAD_KIND] = L.LOAD_NAMES[v["mechanics.load"]]
     p[L.P_DC_SOURCE_OHM] = v["terminal.source_ohm"]
     p[L.P_DT_S] = v["sim.dt_us"] * 1e-6
@@ -140,7 +140,8 @@ def pack(machine: Config, converter: Config | None = None) -> Plant:
     initial = v["machine.thermal.initial_C"]
     x0[L.X_TEMP_ARM_C] = v["machine.thermal.ambient_C"] if initial is None else initial
     x0[L.X_THY_FIRE_AT0 : L.X_THY_FIRE_AT0 + L.N_THY] = -1.0
-    x0[L.X_THY_OFF_S0 : L.X_THY_OFF_S0 + L.N_THY] = 1.0  # long since recovered
+    x0[L.X_THY_OFF_S0 : L.X_THY_OFF_S0 + L.N_THY] = -1.0  # went off long ago: recovered
+    x0[L.X_THY_GATE0 : L.X_THY_GATE0 + L.N_THY] = -1.0  # no gate pulse
     x0[L.X_LAST_FIRED_UP] = -1.0
     x0[L.X_LAST_FIRED_LOW] = -1.0
     x0[L.X_FIELD_FIRE_AT] = -1.0
@@ -226,21 +227,16 @@ def derive(plant: Plant) -> dict:
     if conn == L.CONN_SERIES:
         d["no_load_speed_rpm"] = math.inf  # a series motor runs away unloaded
     else:
-        kphi_nl = emf_at(p, v["machine.rated_field_current_A"], 1.0) if conn != L.CONN_SEPARATE or True else 0
+        kphi_nl = emf_at(p, v["machine.rated_field_current_A"], 1.0)
         if kphi_nl > 0:
             d["no_load_speed_rpm"] = (vr / kphi_nl) / RPM
     # the fastest electrical mode: armature loop with the supply, or the friction regulariser
     tau_fast = [taus["armature_s"]]
-    if p[L.P_COULOMB_NM] > 0:
-        tau_fast.append(j * p[L.P_FRICTION_SMOOTH_RAD_S] / p[L.P_COULOMB_NM])
     load_ohm = v["terminal.load_ohm"]
     if load_ohm > 0:
         tau_fast.append((la + p[L.P_LSE_LEAK_H]) / (load_ohm + r_arm))
     if plant.converter is not None and int(p[L.P_SUPPLY_KIND]) == L.SUPPLY_CURRENT:
         tau_fast.append(p[L.P_ISRC_TAU_S])
-    if conn == L.CONN_SHUNT or conn == L.CONN_LONG_SHUNT or conn == L.CONN_SHORT_SHUNT:
-        # shunt field in parallel with the armature: the circulating mode sees La + Lf
-        pass
     tau_min = min(tau_fast)
     d["time_constants_s"] = taus
     d["tau_min_s"] = tau_min

@@ -69,9 +69,9 @@ from .layout import (
     P_DT_S,
     P_ENCODER_PPR,
     P_FIELD_ALPHA_MIN_RAD,
+    P_FIELD_SIGN,
     P_FIELD_SUPPLY_KIND,
     P_FIELD_VAC_V,
-    P_FRICTION_SMOOTH_RAD_S,
     P_GATE_PULSE_RAD,
     P_ISRC_TAU_S,
     P_J_KGM2,
@@ -198,6 +198,8 @@ from .layout import (
 from .magnetization import curve_emf, reaction_field_A
 
 TWO_PI = 2.0 * math.pi
+PI_6 = math.pi / 6.0
+PI_3 = math.pi / 3.0
 SQRT2 = math.sqrt(2.0)
 SQRT3 = math.sqrt(3.0)
 COPPER_K = 235.0  # IEC 60034-1 copper temperature constant (degC)
@@ -215,22 +217,24 @@ _LOWER_OF_PHASE = (3, 5, 1)
 
 
 @njit(cache=True, inline="always")
-def _connection(conn, ratio, sign):
+def _connection(conn, ratio, sign, kh):
     """Winding-current coefficients and loop incidences of a connection.
 
+    kh is +1, or -1 for a shunt/separate field connected the other way round (its ampere-turns
+    then oppose those of the same current in the normal connection).
     Returns (ca1, ca2, cs1, cs2, ch1, ch2, a1a, a1s, a1h, a2a, a2s, a2h, ks, kh, has_loop2).
     """
     if conn == CONN_SEPARATE:
-        return 1.0, 0.0, 0.0, 0.0, 0.0, 1.0, 1.0, 0.0, 0.0, 0.0, 0.0, 1.0, 0.0, 1.0, True
+        return 1.0, 0.0, 0.0, 0.0, 0.0, 1.0, 1.0, 0.0, 0.0, 0.0, 0.0, 1.0, 0.0, kh, True
     if conn == CONN_SHUNT:
-        return 1.0, -1.0, 0.0, 0.0, 0.0, 1.0, 1.0, 0.0, 0.0, -1.0, 0.0, 1.0, 0.0, 1.0, True
+        return 1.0, -1.0, 0.0, 0.0, 0.0, 1.0, 1.0, 0.0, 0.0, -1.0, 0.0, 1.0, 0.0, kh, True
     if conn == CONN_SERIES:
         return 1.0, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0, 1.0, 0.0, 0.0, 0.0, 0.0, 1.0, 0.0, False
     ks = ratio * sign
     if conn == CONN_LONG_SHUNT:
-        return 1.0, -1.0, 1.0, -1.0, 0.0, 1.0, 1.0, 1.0, 0.0, -1.0, -1.0, 1.0, ks, 1.0, True
+        return 1.0, -1.0, 1.0, -1.0, 0.0, 1.0, 1.0, 1.0, 0.0, -1.0, -1.0, 1.0, ks, kh, True
     # CONN_SHORT_SHUNT
-    return 1.0, -1.0, 1.0, 0.0, 0.0, 1.0, 1.0, 1.0, 0.0, -1.0, 0.0, 1.0, ks, 1.0, True
+    return 1.0, -1.0, 1.0, 0.0, 0.0, 1.0, 1.0, 1.0, 0.0, -1.0, 0.0, 1.0, ks, kh, True
 
 
 @njit(cache=True, inline="always")
@@ -320,16 +324,6 @@ def _machine(p, cc, i1, i2, w, ra, rse, rsh, term, vth, rth, lth, di1_forced, vs
 
 
 @njit(cache=True, inline="always")
-def _crossed(theta0, dtheta, phi):
-    """True when the wrapped angle phi lies in (theta0, theta0 + dtheta]."""
-    d = phi - theta0
-    d -= TWO_PI * math.floor(d / TWO_PI)
-    if d == 0.0:
-        d = TWO_PI
-    return d <= dtheta
-
-
-@njit(cache=True, inline="always")
 def _wrap(a):
     return a - TWO_PI * math.floor(a / TWO_PI)
 
@@ -379,20 +373,39 @@ def _bridge_thevenin(rail0, rail1, rail2, v0, v1, v2, i0, i1_, i2_, rs):
 
 
 @njit(cache=True, inline="always")
-def _load_torque(kind, t_set, w, w_rated, w_smooth):
-    if kind == LOAD_CONSTANT:
-        x = w / w_smooth
-        if x > 1.0:
-            x = 1.0
-        elif x < -1.0:
-            x = -1.0
-        return t_set * x
+def _sign(v):
+    return 1.0 if v > 0.0 else (-1.0 if v < 0.0 else 0.0)
+
+
+@njit(cache=True, inline="always")
+def _load_torque(kind, t_set, w, w_rated):
+    """Load torques that are smooth in speed (the passive constant load is handled apart)."""
     if kind == LOAD_PROPORTIONAL:
         return t_set * w / w_rated
     if kind == LOAD_QUADRATIC:
         return t_set * w * abs(w) / (w_rated * w_rated)
     if kind == LOAD_OVERHAULING:
         return t_set
+    return 0.0
+
+
+@njit(cache=True, inline="always")
+def _passive(w0, w_free, dv):
+    """Speed after a step under passive (Coulomb-type) torques worth dv = dt*T/J.
+
+    A passive torque opposes motion and never reverses it: the shaft slows by dv in its
+    direction of motion, stops if that would carry it through zero, and stays at rest while
+    the free (active) change is within dv (break-away at the Coulomb torque). Exact for a
+    constant passive torque, and free of the stiffness a smoothed sign function brings.
+    """
+    if dv <= 0.0:
+        return w_free
+    if w0 > 0.0 or (w0 == 0.0 and w_free > dv):
+        w = w_free - dv
+        return w if w > 0.0 else 0.0
+    if w0 < 0.0 or (w0 == 0.0 and w_free < -dv):
+        w = w_free + dv
+        return w if w < 0.0 else 0.0
     return 0.0
 
 
@@ -412,7 +425,7 @@ def step_frame(x, p, u, y, n_sub):
     """
     dt = p[P_DT_S]
     conn = int(p[P_CONNECTION])
-    cc = _connection(conn, p[P_SE_TURNS_RATIO], p[P_COMPOUND_SIGN])
+    cc = _connection(conn, p[P_SE_TURNS_RATIO], p[P_COMPOUND_SIGN], p[P_FIELD_SIGN])
     supply = int(p[P_SUPPLY_KIND])
     is_bridge = supply == SUPPLY_BRIDGE or supply == SUPPLY_DUAL_BRIDGE
     is_avg = supply == SUPPLY_AVERAGED
@@ -476,11 +489,14 @@ def step_frame(x, p, u, y, n_sub):
     j_total = p[P_J_KGM2]
     if coupling_ok:
         j_total += p[P_J_LOAD_KGM2]
+    t_passive = p[P_COULOMB_NM]
     w_rated = p[P_RATED_SPEED_RAD_S]
-    w_smooth = p[P_FRICTION_SMOOTH_RAD_S]
     t_set = u[U_LOAD_TORQUE_NM]
     if not coupling_ok:
         t_set = 0.0
+    if load_kind == LOAD_CONSTANT:
+        t_set = abs(t_set)
+        t_passive += t_set
     speed_imposed = locked or (load_kind == LOAD_PRIME_MOVER and coupling_ok)
     w_imposed = 0.0
     if not locked:
@@ -503,7 +519,9 @@ def step_frame(x, p, u, y, n_sub):
     sum_ia = 0.0
     sum_pin = 0.0
     sum_psh = 0.0
+    sum_ia2 = 0.0
     peak_ia = 0.0
+    sec_prev = math.floor((x[X_MAINS_ANGLE_RAD] - PI_6) / PI_3)
     ia = 0.0
     ise = 0.0
     immf = 0.0
@@ -513,6 +531,13 @@ def step_frame(x, p, u, y, n_sub):
     vfield = 0.0
     vt = x[X_VT_V]
     tl = 0.0
+    term = TERM_OPEN
+    vth1 = 0.0
+    rth = 0.0
+    lth = 0.0
+    vsrc2_end = 0.0
+    loop2_on = not field_open
+    ra = _copper_ohm(p[P_RA_OHM], x[X_TEMP_ARM_C], t_ref)
 
     for _ in range(n_sub):
         i1 = x[X_I_LINE_A]
@@ -521,6 +546,7 @@ def step_frame(x, p, u, y, n_sub):
         temp = x[X_TEMP_ARM_C]
         ra = _copper_ohm(p[P_RA_OHM], temp, t_ref)
         th0 = x[X_MAINS_ANGLE_RAD]
+        t_now = x[X_TIME_S]
         s1 = s0 * cr + c0 * sr
         c1 = c0 * cr - s0 * sr
         va0, vb0, vc0 = _phase_volts(vpk, s0, c0, rev_seq)
@@ -559,10 +585,12 @@ def step_frame(x, p, u, y, n_sub):
                     active = select
                     pol = 1.0 if select == 1 else -1.0
             fire_ok = (not blocked) and select == active
-            # natural commutation instants: latch the firing angle for each thyristor
-            for k in range(6):
-                nat = math.pi / 6.0 + k * (math.pi / 3.0)
-                if _crossed(th0, dtheta, nat):
+            # natural commutation instants (every 60 deg from 30 deg): latch the firing angle
+            sec1 = math.floor((th0 + dtheta - PI_6) / PI_3)
+            if sec1 > sec_prev:
+                k = int(sec1) % 6
+                nat = PI_6 + sec1 * PI_3
+                if True:
                     # per-pulse mean terminal voltage, and the averaged bridge's next voltage
                     if x[X_PULSE_T_S] > 0.0:
                         x[X_PULSE_VAVG_V] = x[X_PULSE_VINT] / x[X_PULSE_T_S]
@@ -570,7 +598,7 @@ def step_frame(x, p, u, y, n_sub):
                     x[X_PULSE_T_S] = 0.0
                     x[X_LATCHED_ALPHA_RAD] = alpha_cmd
                     if fire_ok:
-                        x[X_THY_FIRE_AT0 + k] = _wrap(nat + alpha_cmd)
+                        x[X_THY_FIRE_AT0 + k] = nat + alpha_cmd
                     else:
                         x[X_THY_FIRE_AT0 + k] = -1.0
                     if is_avg:
@@ -582,12 +610,13 @@ def step_frame(x, p, u, y, n_sub):
                         else:
                             vdo = 3.0 * SQRT2 / math.pi * vpk * SQRT3 / SQRT2
                         x[X_AVG_VOLTAGE_V] = vdo * math.cos(a_eff)
+            sec_prev = sec1
             if is_bridge and not contactor and not arm_short:
                 # the open contactor breaks the DC circuit: the bridge current is zero
                 for k in range(6):
                     if x[X_THY_ON0 + k] > 0.5 and not (short_mask >> k) & 1:
                         x[X_THY_ON0 + k] = 0.0
-                        x[X_THY_OFF_S0 + k] = 0.0
+                        x[X_THY_OFF_S0 + k] = t_now
                 if short_mask == 0:
                     x[X_PH_I0] = 0.0
                     x[X_PH_I0 + 1] = 0.0
@@ -596,22 +625,24 @@ def step_frame(x, p, u, y, n_sub):
                     pb = 0.0
                     pc = 0.0
             if is_bridge:
-                # firing events and gate pulses (double pulsing: T_k and T_k-1 together)
-                for k in range(6):
-                    g = x[X_THY_GATE0 + k] - dtheta
-                    x[X_THY_GATE0 + k] = g if g > 0.0 else 0.0
+                # firing events and gate pulses (double pulsing: T_k and T_k-1 together); a
+                # gate stays on while the mains angle is below its pulse end
+                # a firing instant falls into the step whose midpoint passed it, so firing is
+                # neither early nor late on average (error within half a step either way)
+                th_mid = th0 + 0.5 * dtheta
                 for k in range(6):
                     fa = x[X_THY_FIRE_AT0 + k]
-                    if fa >= 0.0 and _crossed(th0, dtheta, fa):
+                    if fa >= 0.0 and th_mid >= fa:
                         x[X_THY_FIRE_AT0 + k] = -1.0
                         if fire_ok:
                             fired_mask |= 1 << k
                             km1 = (k + 5) % 6
+                            g_end = fa + p[P_GATE_PULSE_RAD]
                             if not (misfire_mask >> k) & 1:
-                                x[X_THY_GATE0 + k] = p[P_GATE_PULSE_RAD]
+                                x[X_THY_GATE0 + k] = g_end
                             if not (misfire_mask >> km1) & 1:
-                                if x[X_THY_GATE0 + km1] < p[P_GATE_PULSE_RAD]:
-                                    x[X_THY_GATE0 + km1] = p[P_GATE_PULSE_RAD]
+                                if x[X_THY_GATE0 + km1] < g_end:
+                                    x[X_THY_GATE0 + km1] = g_end
                 # shorted thyristors conduct regardless of gate
                 for k in range(6):
                     if (short_mask >> k) & 1 and not (open_mask >> _THY_PHASE[k]) & 1:
@@ -643,6 +674,10 @@ def step_frame(x, p, u, y, n_sub):
                     for k in range(6):
                         if x[X_THY_ON0 + k] > 0.5:
                             continue
+                        gated = x[X_THY_GATE0 + k] > th0
+                        recovering = t_now - x[X_THY_OFF_S0 + k] < tq
+                        if not (gated or recovering):
+                            continue
                         ph = _THY_PHASE[k]
                         if (open_mask >> ph) & 1:
                             continue
@@ -654,10 +689,6 @@ def step_frame(x, p, u, y, n_sub):
                             fwd = un_ - vx
                             partner = _UPPER_OF_PHASE[ph]
                         if fwd <= 0.0:
-                            continue
-                        gated = x[X_THY_GATE0 + k] > 0.0
-                        recovering = x[X_THY_OFF_S0 + k] < tq
-                        if not (gated or recovering):
                             continue
                         if x[X_THY_ON0 + partner] > 0.5:
                             status |= ST_BRIDGE_SHORT  # leg short: stop here, see docs
@@ -675,14 +706,14 @@ def step_frame(x, p, u, y, n_sub):
                     bu = -1
                     bl = -1
                     for ku_ in (0, 2, 4):
-                        if x[X_THY_GATE0 + ku_] <= 0.0 and x[X_THY_ON0 + ku_] < 0.5:
+                        if x[X_THY_GATE0 + ku_] <= th0 and x[X_THY_ON0 + ku_] < 0.5:
                             continue
                         phu = _THY_PHASE[ku_]
                         if (open_mask >> phu) & 1:
                             continue
                         vu = va0 if phu == 0 else (vb0 if phu == 1 else vc0)
                         for kl_ in (1, 3, 5):
-                            if x[X_THY_GATE0 + kl_] <= 0.0 and x[X_THY_ON0 + kl_] < 0.5:
+                            if x[X_THY_GATE0 + kl_] <= th0 and x[X_THY_ON0 + kl_] < 0.5:
                                 continue
                             phl = _THY_PHASE[kl_]
                             if phl == phu or (open_mask >> phl) & 1:
@@ -784,13 +815,14 @@ def step_frame(x, p, u, y, n_sub):
                 if field_kind == FIELD_SUPPLY_HALF_BRIDGE:
                     # half-controlled single-phase bridge with freewheeling: output |v_ac|
                     # from firing at alpha to the next zero crossing, else zero
-                    if _crossed(thf, dtheta, 0.0) or _crossed(thf, dtheta, math.pi):
+                    secf1 = math.floor((thf + dtheta) / math.pi)
+                    if secf1 > math.floor(thf / math.pi):
+                        # zero crossing of the field supply: the conducting thyristor
+                        # commutates to the freewheel path; schedule this half cycle's firing
                         x[X_FIELD_CONV_ON] = 0.0
-                        x[X_FIELD_FIRE_AT] = _wrap(
-                            (0.0 if _crossed(thf, dtheta, 0.0) else math.pi) + field_alpha
-                        )
+                        x[X_FIELD_FIRE_AT] = secf1 * math.pi + field_alpha
                     fa = x[X_FIELD_FIRE_AT]
-                    if fa >= 0.0 and _crossed(thf, dtheta, fa):
+                    if fa >= 0.0 and thf + dtheta >= fa:
                         x[X_FIELD_CONV_ON] = 1.0
                         x[X_FIELD_FIRE_AT] = -1.0
                     if x[X_FIELD_CONV_ON] > 0.5 and not field_ac_dead:
@@ -835,24 +867,20 @@ def step_frame(x, p, u, y, n_sub):
                 dpb = (vb0 - rs * pb - (vpr if rail1 > 0 else vnr)) / ls
             if rail2 != 0:
                 dpc = (vc0 - rs * pc - (vpr if rail2 > 0 else vnr)) / ls
+        # active torques in Heun's stages; passive ones (Coulomb friction, a passive constant
+        # load) applied after each stage by _passive
         tf = p[P_VISCOUS_NM_S] * w
-        xf = w / w_smooth
-        if xf > 1.0:
-            xf = 1.0
-        elif xf < -1.0:
-            xf = -1.0
-        tf += p[P_COULOMB_NM] * xf
         if speed_imposed:
             dw = 0.0
-            tl = te - tf
+            tl = te - tf - p[P_COULOMB_NM] * _sign(w)
         else:
-            tl = _load_torque(load_kind, t_set, w, w_rated, w_smooth)
+            tl = _load_torque(load_kind, t_set, w, w_rated)
             dw = (te - tf - tl) / j_total
         vt_start = vt
         # stage 2 at the Euler predictor
         i1p = i1 + dt * d1
         i2p = i2 + dt * d2
-        wp = w + dt * dw
+        wp = _passive(w, w + dt * dw, dt * t_passive / j_total)
         if speed_imposed:
             wp = w_imposed
         pap = pa + dt * dpa
@@ -884,17 +912,11 @@ def step_frame(x, p, u, y, n_sub):
             if rail2 != 0:
                 epc = (vc1 - rs * pcp - (vpr if rail2 > 0 else vnr)) / ls
         tf2 = p[P_VISCOUS_NM_S] * wp
-        xf = wp / w_smooth
-        if xf > 1.0:
-            xf = 1.0
-        elif xf < -1.0:
-            xf = -1.0
-        tf2 += p[P_COULOMB_NM] * xf
         if speed_imposed:
             dw2 = 0.0
-            tl2 = te2 - tf2
+            tl2 = te2 - tf2 - p[P_COULOMB_NM] * _sign(wp)
         else:
-            tl2 = _load_torque(load_kind, t_set, wp, w_rated, w_smooth)
+            tl2 = _load_torque(load_kind, t_set, wp, w_rated)
             dw2 = (te2 - tf2 - tl2) / j_total
         h2 = 0.5 * dt
         i1n = i1 + h2 * (d1 + e1)
@@ -902,7 +924,15 @@ def step_frame(x, p, u, y, n_sub):
         if speed_imposed:
             wn = w_imposed
         else:
-            wn = w + h2 * (dw + dw2)
+            w_free = w + h2 * (dw + dw2)
+            wn = _passive(w, w_free, dt * t_passive / j_total)
+            if load_kind == LOAD_CONSTANT:
+                # report the passive load's share of what held or slowed the shaft
+                if wn != 0.0:
+                    tl2 = t_set * _sign(wn)
+                else:
+                    t_act = j_total * (w_free - w) / dt
+                    tl2 = t_act * t_set / t_passive if t_passive > 0.0 else 0.0
         x[X_ANGLE_RAD] += h2 * (w + wn)
         if locked:
             wn = 0.0
@@ -921,9 +951,6 @@ def step_frame(x, p, u, y, n_sub):
 
         # ---------------- after the step: thyristor turn-off, clamps, bookkeeping
         if is_bridge:
-            for k in range(6):
-                if x[X_THY_ON0 + k] < 0.5:
-                    x[X_THY_OFF_S0 + k] += dt
             newi = (pan, pbn, pcn)
             kp = 0
             kn = 0
@@ -940,7 +967,7 @@ def step_frame(x, p, u, y, n_sub):
                     ku = _UPPER_OF_PHASE[ph]
                     if cur <= 0.0 and not (short_mask >> ku) & 1:
                         x[X_THY_ON0 + ku] = 0.0
-                        x[X_THY_OFF_S0 + ku] = 0.0
+                        x[X_THY_OFF_S0 + ku] = t_now + dt
                         r = 0
                         if int(x[X_LAST_FIRED_UP]) == ku:
                             failed_up = True
@@ -948,7 +975,7 @@ def step_frame(x, p, u, y, n_sub):
                     kl = _LOWER_OF_PHASE[ph]
                     if cur >= 0.0 and not (short_mask >> kl) & 1:
                         x[X_THY_ON0 + kl] = 0.0
-                        x[X_THY_OFF_S0 + kl] = 0.0
+                        x[X_THY_OFF_S0 + kl] = t_now + dt
                         r = 0
                         if int(x[X_LAST_FIRED_LOW]) == kl:
                             failed_low = True
@@ -977,7 +1004,7 @@ def step_frame(x, p, u, y, n_sub):
                 for k in range(6):
                     if x[X_THY_ON0 + k] > 0.5 and not (short_mask >> k) & 1:
                         x[X_THY_ON0 + k] = 0.0
-                        x[X_THY_OFF_S0 + k] = 0.0
+                        x[X_THY_OFF_S0 + k] = t_now + dt
                 if short_mask == 0:
                     pan = 0.0
                     pbn = 0.0
@@ -987,18 +1014,25 @@ def step_frame(x, p, u, y, n_sub):
                 if feeds:
                     i1n = 0.0
             else:
-                # keep KCL exact: + group sum is the DC current, - group absorbs the residue
+                # keep KCL exact without a jump of the DC current: the integrated DC current
+                # stands, and each group's remaining devices absorb what a turn-off clipped
                 s_p = (pan if ra_ > 0 else 0.0) + (pbn if rb_ > 0 else 0.0) + (pcn if rc_ > 0 else 0.0)
                 s_n = -((pan if ra_ < 0 else 0.0) + (pbn if rb_ < 0 else 0.0) + (pcn if rc_ < 0 else 0.0))
-                delta = (s_n - s_p) / kn
-                if ra_ < 0:
-                    pan += delta
-                if rb_ < 0:
-                    pbn += delta
-                if rc_ < 0:
-                    pcn += delta
-                if feeds:
-                    i1n = pol * s_p
+                i_d = pol * i1n if feeds else s_p
+                dp = (i_d - s_p) / kp
+                dn = (s_n - i_d) / kn
+                if ra_ > 0:
+                    pan += dp
+                elif ra_ < 0:
+                    pan += dn
+                if rb_ > 0:
+                    pbn += dp
+                elif rb_ < 0:
+                    pbn += dn
+                if rc_ > 0:
+                    pcn += dp
+                elif rc_ < 0:
+                    pcn += dn
             x[X_PH_I0] = pan
             x[X_PH_I0 + 1] = pbn
             x[X_PH_I0 + 2] = pcn
@@ -1016,12 +1050,15 @@ def step_frame(x, p, u, y, n_sub):
         x[X_I_LINE_A] = i1n
         x[X_I_FIELD_A] = i2n
         x[X_SPEED_RAD_S] = wn
-        if not frozen:
-            loss_ratio = ia * ia * (COPPER_K + temp) / loss_rated
-            x[X_TEMP_ARM_C] = temp + dt * (
-                p[P_THERMAL_RISE_K] * loss_ratio - (temp - p[P_TEMP_AMBIENT_C])
-            ) / p[P_THERMAL_TAU_S]
-        x[X_MAINS_ANGLE_RAD] = _wrap(th0 + dtheta)
+        if i1n == 0.0 and term != TERM_OPEN:
+            # the terminal current stopped in this step: what follows is the open-circuit
+            # voltage (the next turn-on decision compares the bridge against it)
+            term = TERM_OPEN
+            d1, d2, vt, ia, ise, immf, emf, kphi, te, vfield = _machine(
+                p, cc, 0.0, i2n, wn, ra, rse, rsh, TERM_OPEN, 0.0, 0.0, 0.0, 0.0, vsrc2_end, loop2_on
+            )
+        sum_ia2 += ia * ia
+        x[X_MAINS_ANGLE_RAD] = th0 + dtheta
         s0 = s1
         c0 = c1
         x[X_TIME_S] += dt
@@ -1036,7 +1073,22 @@ def step_frame(x, p, u, y, n_sub):
         if abs(ia) > peak_ia:
             peak_ia = abs(ia)
 
-    # re-evaluate algebraic outputs at the final state so end values are consistent
+    # outputs at the end state (the loop's values belong to the last predictor stage)
+    if n_sub > 0:
+        d1, d2, vt, ia, ise, immf, emf, kphi, te, vfield = _machine(
+            p, cc, x[X_I_LINE_A], x[X_I_FIELD_A], x[X_SPEED_RAD_S], ra, rse, rsh, term, vth1, rth, lth,
+            (u[U_IREF_A] - x[X_I_LINE_A]) / p[P_ISRC_TAU_S] if term == TERM_FORCED else 0.0,
+            vsrc2_end, loop2_on,
+        )
+        x[X_VT_V] = vt
+    # the armature temperature moves over minutes: one Euler step per call on the frame's
+    # mean copper loss is as exact as a step per substep (the call is far shorter than tau)
+    if not frozen and n_sub > 0:
+        temp = x[X_TEMP_ARM_C]
+        loss_ratio = sum_ia2 / n_sub * (COPPER_K + temp) / loss_rated
+        x[X_TEMP_ARM_C] = temp + n_sub * dt * (
+            p[P_THERMAL_RISE_K] * loss_ratio - (temp - p[P_TEMP_AMBIENT_C])
+        ) / p[P_THERMAL_TAU_S]
     finite = True
     for k in range(len(x)):
         if not math.isfinite(x[k]):
@@ -1074,7 +1126,7 @@ def step_frame(x, p, u, y, n_sub):
     y[Y_CONDUCTING_MASK] = cmask
     y[Y_FIRED_MASK] = fired_mask
     y[Y_LAST_FIRE_ANGLE_DEG] = x[X_LATCHED_ALPHA_RAD] * (180.0 / math.pi)
-    y[Y_MAINS_ANGLE_RAD] = x[X_MAINS_ANGLE_RAD]
+    y[Y_MAINS_ANGLE_RAD] = _wrap(x[X_MAINS_ANGLE_RAD])
     y[Y_STATUS] = status
     y[Y_TACHO_V] = y[Y_SPEED_RPM] * p[P_TACHO_V_PER_RPM]
     y[Y_ENCODER_COUNT] = math.floor(x[X_ANGLE_RAD] / TWO_PI * 4.0 * p[P_ENCODER_PPR])

@@ -112,17 +112,17 @@ X_SPEED_RAD_S = _block("X_", ["SPEED_RAD_S"])
 X_ANGLE_RAD = _block("X_", ["ANGLE_RAD"])  # shaft angle, unwrapped
 X_TEMP_ARM_C = _block("X_", ["TEMP_ARM_C"])
 X_TIME_S = _block("X_", ["TIME_S"])
-X_MAINS_ANGLE_RAD = _block("X_", ["MAINS_ANGLE_RAD"])  # phase a voltage angle, wrapped [0, 2pi)
+X_MAINS_ANGLE_RAD = _block("X_", ["MAINS_ANGLE_RAD"])  # phase a voltage angle, unwrapped (grows)
 # mains line currents into the bridge, phases a, b, c (A); the phase's conducting thyristor
 # carries |i|: upper one when i > 0, lower one when i < 0 (a shorted one may carry either sign)
 X_PH_I0 = _block("X_", ["PH_IA", "PH_IB", "PH_IC"])
 # 1.0 while thyristor k conducts
 X_THY_ON0 = _block("X_", [f"THY_ON{k}" for k in range(N_THY)])
-# time since thyristor k stopped conducting (s), for the turn-off (recovery) time check
+# model time at which thyristor k last stopped conducting (s), for the turn-off time check
 X_THY_OFF_S0 = _block("X_", [f"THY_OFF_S{k}" for k in range(N_THY)])
-# mains angle at which thyristor k is to be fired (rad, in [0, 2pi)), or -1 when none pending
+# unwrapped mains angle at which thyristor k is to be fired (rad), or -1 when none is pending
 X_THY_FIRE_AT0 = _block("X_", [f"THY_FIRE_AT{k}" for k in range(N_THY)])
-# remaining gate pulse (rad of mains angle) for thyristor k
+# unwrapped mains angle at which thyristor k's gate pulse ends (gated while the angle is below)
 X_THY_GATE0 = _block("X_", [f"THY_GATE{k}" for k in range(N_THY)])
 X_BRIDGE_ACTIVE = _block("X_", ["BRIDGE_ACTIVE"])  # 0 none, 1 forward, 2 reverse bridge
 X_ZERO_CURRENT_S = _block("X_", ["ZERO_CURRENT_S"])  # time the armature current has been zero
@@ -135,7 +135,7 @@ X_FIELD_AVG_V = _block("X_", ["FIELD_AVG_V"])  # averaged field bridge: voltage 
 X_LAST_FIRED_UP = _block("X_", ["LAST_FIRED_UP"])  # index of the last upper thyristor turned on, -1 none
 X_LAST_FIRED_LOW = _block("X_", ["LAST_FIRED_LOW"])  # index of the last lower thyristor turned on
 X_LATCHED_ALPHA_RAD = _block("X_", ["LATCHED_ALPHA_RAD"])  # firing angle latched at the last instant
-X_FIELD_FIRE_AT = _block("X_", ["FIELD_FIRE_AT"])  # field bridge: angle of next firing, -1 none
+X_FIELD_FIRE_AT = _block("X_", ["FIELD_FIRE_AT"])  # field bridge: unwrapped angle of next firing, -1 none
 X_VT_V = _block("X_", ["VT_V"])  # last terminal voltage (kept for forward-bias checks)
 STATE_NAMES = tuple(_names)
 N_STATE = len(_names)
@@ -146,6 +146,7 @@ N_STATE = len(_names)
 _names = []
 P_CONNECTION = _block("P_", ["CONNECTION"])
 P_COMPOUND_SIGN = _block("P_", ["COMPOUND_SIGN"])  # +1 cumulative, -1 differential
+P_FIELD_SIGN = _block("P_", ["FIELD_SIGN"])  # +1, or -1: shunt/separate field connected reversed
 P_RA_OHM = _block("P_", ["RA_OHM"])  # armature circuit resistance at P_TEMP_REF_C (incl. interpoles)
 P_LA_H = _block("P_", ["LA_H"])
 P_BRUSH_DROP_V = _block("P_", ["BRUSH_DROP_V"])  # total brush drop while current flows
@@ -178,7 +179,6 @@ P_J_KGM2 = _block("P_", ["J_KGM2"])  # machine rotor inertia
 P_J_LOAD_KGM2 = _block("P_", ["J_LOAD_KGM2"])  # load inertia behind the coupling
 P_VISCOUS_NM_S = _block("P_", ["VISCOUS_NM_S"])  # N m per rad/s
 P_COULOMB_NM = _block("P_", ["COULOMB_NM"])
-P_FRICTION_SMOOTH_RAD_S = _block("P_", ["FRICTION_SMOOTH_RAD_S"])
 P_LOAD_KIND = _block("P_", ["LOAD_KIND"])
 P_SUPPLY_KIND = _block("P_", ["SUPPLY_KIND"])
 P_DC_SOURCE_OHM = _block("P_", ["DC_SOURCE_OHM"])

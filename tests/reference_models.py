@@ -45,6 +45,11 @@ import numpy as np
 from scipy.integrate import solve_ivp
 from scipy.interpolate import CubicHermiteSpline, PchipInterpolator
 
+# The kernel treats passive torques (Coulomb friction, a passive constant load) exactly: they
+# stop the shaft and hold it. An ODE solver needs a continuous law, so the reference smooths
+# the sign function over this band (far below any speed the comparisons look at).
+REF_SMOOTH_RAD_S = 1e-3
+
 COPPER_K = 235.0  # IEC 60034-1, copper (from memory)
 RPM = math.pi / 30.0
 
@@ -178,7 +183,7 @@ def machine_from_config(v: dict) -> Machine:
         j_load=v["mechanics.load_inertia_kgm2"],
         b_visc=v["mechanics.viscous_Nm_per_rad_s"],
         t_coul=v["mechanics.coulomb_Nm"],
-        w_smooth=v["mechanics.friction_smooth_rad_s"],
+        w_smooth=REF_SMOOTH_RAD_S,
         load=v["mechanics.load"],
     )
 
@@ -217,7 +222,7 @@ def terminal(inp: Inputs):
 
 def load_torque(m: Machine, inp: Inputs, w: float) -> float:
     t = inp.load_torque_Nm if inp.coupling_ok else 0.0
-    if m.load == "constant":  # passive: opposes motion, smoothed through zero speed
+    if m.load == "constant":  # passive: opposes motion; smoothed over a tiny band for the ODE solver
         return t * max(-1.0, min(1.0, w / m.w_smooth))
     if m.load == "proportional":
         return t * w / m.w_rated
