@@ -36,6 +36,10 @@ class Timeline:
     steps: list[TimelineStep] = field(default_factory=list)
     _next: int = 0
 
+    def __post_init__(self):
+        # applied in time order whatever order they were listed in (stable for equal times)
+        self.steps = sorted(self.steps, key=lambda st: st.t_s)
+
     def __call__(self, loop: HostLoop) -> None:
         t = loop.y[L.Y_TIME_S]
         while self._next < len(self.steps) and self.steps[self._next].t_s <= t + 1e-12:

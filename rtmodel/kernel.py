@@ -106,6 +106,7 @@ from .layout import (
     P_VISCOUS_NM_S,
     ST_ARMATURE_SHORT,
     ST_BRIDGE_SHORT,
+    ST_LEG_OVERLAP,
     ST_COMMUTATION_FAILURE,
     ST_CONTACTOR_BREAK_UNDER_LOAD,
     ST_DEADTIME_VIOLATION,
@@ -566,6 +567,7 @@ def step_frame(x, p, u, y, n_sub):
         rail1 = 0
         rail2 = 0
         bridge_dc_short = False
+        short_loop = False
         if is_bridge or is_avg:
             # dual bridge changeover supervision: the selected bridge may only take over
             # after the current has been zero for the dead time
@@ -691,7 +693,13 @@ def step_frame(x, p, u, y, n_sub):
                         if fwd <= 0.0:
                             continue
                         if x[X_THY_ON0 + partner] > 0.5:
-                            status |= ST_BRIDGE_SHORT  # leg short: stop here, see docs
+                            # both devices of one leg: a shorted device makes it a DC-side
+                            # short; otherwise the load would freewheel through the leg, which
+                            # this model does not represent: it keeps this device off and says so
+                            if ((short_mask >> partner) | (short_mask >> k)) & 1:
+                                status |= ST_BRIDGE_SHORT
+                            else:
+                                status |= ST_LEG_OVERLAP
                             continue
                         if not gated:
                             status |= ST_COMMUTATION_FAILURE
@@ -748,6 +756,9 @@ def step_frame(x, p, u, y, n_sub):
                     else:
                         rail2 = r
                 up_, un_, kp, kn = _bridge_thevenin(rail0, rail1, rail2, va0, vb0, vc0, pa, pb, pc, rs)
+                # two devices of one group with no DC path (a shorted device and the next one
+                # fired): a line-to-line loop through the commutating inductances
+                short_loop = not (kp > 0 and kn > 0) and (kp >= 2 or kn >= 2)
                 if kp > 0 and kn > 0:
                     if arm_short or not contactor:
                         bridge_dc_short = arm_short
@@ -853,14 +864,16 @@ def step_frame(x, p, u, y, n_sub):
         dpa = 0.0
         dpb = 0.0
         dpc = 0.0
-        if feeds or bridge_dc_short:
+        if feeds or bridge_dc_short or short_loop:
             up_, un_, kp, kn = _bridge_thevenin(rail0, rail1, rail2, va0, vb0, vc0, pa, pb, pc, rs)
-            if bridge_dc_short:
+            if short_loop:
+                did = 0.0
+            elif bridge_dc_short:
                 did = (up_ - un_) / (ls * (1.0 / kp + 1.0 / kn))
             else:
                 did = pol * d1
-            vpr = up_ - ls / kp * did
-            vnr = un_ + ls / kn * did
+            vpr = up_ - ls / kp * did if kp > 0 else 0.0
+            vnr = un_ + ls / kn * did if kn > 0 else 0.0
             if rail0 != 0:
                 dpa = (va0 - rs * pa - (vpr if rail0 > 0 else vnr)) / ls
             if rail1 != 0:
@@ -897,14 +910,16 @@ def step_frame(x, p, u, y, n_sub):
         epa = 0.0
         epb = 0.0
         epc = 0.0
-        if feeds or bridge_dc_short:
+        if feeds or bridge_dc_short or short_loop:
             up_, un_, kp, kn = _bridge_thevenin(rail0, rail1, rail2, va1, vb1, vc1, pap, pbp, pcp, rs)
-            if bridge_dc_short:
+            if short_loop:
+                did = 0.0
+            elif bridge_dc_short:
                 did = (up_ - un_) / (ls * (1.0 / kp + 1.0 / kn))
             else:
                 did = pol * e1
-            vpr = up_ - ls / kp * did
-            vnr = un_ + ls / kn * did
+            vpr = up_ - ls / kp * did if kp > 0 else 0.0
+            vnr = un_ + ls / kn * did if kn > 0 else 0.0
             if rail0 != 0:
                 epa = (va1 - rs * pap - (vpr if rail0 > 0 else vnr)) / ls
             if rail1 != 0:
@@ -957,6 +972,8 @@ def step_frame(x, p, u, y, n_sub):
             rails = (rail0, rail1, rail2)
             failed_up = False
             failed_low = False
+            f_off = 1.0  # fraction of the step at which the earliest turn-off happened
+            oldi = (pa, pb, pc)
             ra_ = 0
             rb_ = 0
             rc_ = 0
@@ -969,6 +986,8 @@ def step_frame(x, p, u, y, n_sub):
                         x[X_THY_ON0 + ku] = 0.0
                         x[X_THY_OFF_S0 + ku] = t_now + dt
                         r = 0
+                        if oldi[ph] > 0.0:
+                            f_off = min(f_off, oldi[ph] / (oldi[ph] - cur))
                         if int(x[X_LAST_FIRED_UP]) == ku:
                             failed_up = True
                 elif r < 0:
@@ -977,6 +996,8 @@ def step_frame(x, p, u, y, n_sub):
                         x[X_THY_ON0 + kl] = 0.0
                         x[X_THY_OFF_S0 + kl] = t_now + dt
                         r = 0
+                        if oldi[ph] < 0.0:
+                            f_off = min(f_off, oldi[ph] / (oldi[ph] - cur))
                         if int(x[X_LAST_FIRED_LOW]) == kl:
                             failed_low = True
                 if r > 0:
@@ -1000,20 +1021,61 @@ def step_frame(x, p, u, y, n_sub):
             if rc_ == 0:
                 pcn = 0.0
             if kp == 0 or kn == 0:
-                # one group emptied: the bridge current is zero; remaining devices go off
+                # one group emptied: the DC current is zero; devices that are not shorted go
+                # off, and only a loop of two shorted/conducting phases in one group carries on
                 for k in range(6):
                     if x[X_THY_ON0 + k] > 0.5 and not (short_mask >> k) & 1:
                         x[X_THY_ON0 + k] = 0.0
                         x[X_THY_OFF_S0 + k] = t_now + dt
-                if short_mask == 0:
+                n_up = 0
+                n_low = 0
+                for ph in range(3):
+                    if x[X_THY_ON0 + _UPPER_OF_PHASE[ph]] > 0.5:
+                        n_up += 1
+                    elif x[X_THY_ON0 + _LOWER_OF_PHASE[ph]] > 0.5:
+                        n_low += 1
+                if n_up < 2 and n_low < 2:
                     pan = 0.0
                     pbn = 0.0
                     pcn = 0.0
+                else:
+                    # keep the loop's KCL exact: the two line currents are equal and opposite
+                    if x[X_THY_ON0 + _UPPER_OF_PHASE[0]] + x[X_THY_ON0 + _LOWER_OF_PHASE[0]] < 0.5:
+                        pan = 0.0
+                    if x[X_THY_ON0 + _UPPER_OF_PHASE[1]] + x[X_THY_ON0 + _LOWER_OF_PHASE[1]] < 0.5:
+                        pbn = 0.0
+                    if x[X_THY_ON0 + _UPPER_OF_PHASE[2]] + x[X_THY_ON0 + _LOWER_OF_PHASE[2]] < 0.5:
+                        pcn = 0.0
+                    res = (pan + pbn + pcn) / (n_up + n_low)
+                    if pan != 0.0:
+                        pan -= res
+                    if pbn != 0.0:
+                        pbn -= res
+                    if pcn != 0.0:
+                        pcn -= res
                 x[X_LAST_FIRED_UP] = -1.0
                 x[X_LAST_FIRED_LOW] = -1.0
                 if feeds:
                     i1n = 0.0
             else:
+                if feeds and f_off < 1.0:
+                    # the end of an overlap fell inside the step, which ran to its end with the
+                    # overlap circuit: give the rest of the step the new circuit's DC-current
+                    # slope (first order), else every commutation lasts half a step too long
+                    # on average and the mean voltage sags in proportion to the step
+                    up_o, un_o, kp_o, kn_o = _bridge_thevenin(rail0, rail1, rail2, va1, vb1, vc1, pan, pbn, pcn, rs)
+                    up_n, un_n, kp_n, kn_n = _bridge_thevenin(ra_, rb_, rc_, va1, vb1, vc1, pan, pbn, pcn, rs)
+                    g1, g2, _v, _a, _s, _m, _e, _k, _t, _f = _machine(
+                        p, cc, i1n, i2n, wn, ra, rse, rsh, TERM_THEVENIN, pol * (up_o - un_o), rth,
+                        ls * (1.0 / kp_o + 1.0 / kn_o), 0.0, vsrc2_end, loop2_on,
+                    )
+                    h1, h2_, _v, _a, _s, _m, _e, _k, _t, _f = _machine(
+                        p, cc, i1n, i2n, wn, ra, rse, rsh, TERM_THEVENIN, pol * (up_n - un_n), rth,
+                        ls * (1.0 / kp_n + 1.0 / kn_n), 0.0, vsrc2_end, loop2_on,
+                    )
+                    rest = (1.0 - f_off) * dt
+                    i1n += rest * (h1 - g1)
+                    i2n += rest * (h2_ - g2)
                 # keep KCL exact without a jump of the DC current: the integrated DC current
                 # stands, and each group's remaining devices absorb what a turn-off clipped
                 s_p = (pan if ra_ > 0 else 0.0) + (pbn if rb_ > 0 else 0.0) + (pcn if rc_ > 0 else 0.0)

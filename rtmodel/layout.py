@@ -73,7 +73,9 @@ ST_CONTACTOR_BREAK_UNDER_LOAD = 1 << 3  # contactor opened while current flowed
 ST_NONFINITE = 1 << 4  # a state became NaN/inf: the run must stop (step too large?)
 ST_FIELD_OPEN = 1 << 5  # field circuit open (fault or contactor) during the frame
 ST_ARMATURE_SHORT = 1 << 6  # armature short/flashover fault active
-ST_BRIDGE_SHORT = 1 << 7  # a shorted thyristor formed a path across the bridge output
+ST_BRIDGE_SHORT = 1 << 7  # a shorted thyristor and its leg partner formed a DC-side short
+ST_LEG_OVERLAP = 1 << 8  # both devices of a leg were due to conduct (freewheel through a leg,
+# e.g. after a misfire): not modelled, the later device was kept off
 ST_NAMES = {
     ST_DISCONTINUOUS: "discontinuous_conduction",
     ST_COMMUTATION_FAILURE: "commutation_failure",
@@ -83,6 +85,7 @@ ST_NAMES = {
     ST_FIELD_OPEN: "field_open",
     ST_ARMATURE_SHORT: "armature_short",
     ST_BRIDGE_SHORT: "bridge_short",
+    ST_LEG_OVERLAP: "leg_overlap_not_modelled",
 }
 
 # Thyristor numbering follows the firing sequence of a 6-pulse bridge (common practice):

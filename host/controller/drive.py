@@ -406,7 +406,11 @@ class DriveController:
                         self._n_top - self._taper_start)
                     if taper < self._taper_end:
                         taper = self._taper_end
-                if n >= 0.0:
+                # the direction of travel decides which limit is motoring; around standstill
+                # the reference decides, or a single-bridge drive with no regenerating limit
+                # is clamped to zero current by a speed reading of -0.001 r/min and never starts
+                forward = n > self._zero_speed or (n >= -self._zero_speed and w >= 0.0)
+                if forward:
                     hi = self._lim_mot * taper
                     lo = -self._lim_reg * taper
                 else:

@@ -240,7 +240,13 @@ class HostSession(_Session):
             if now >= deadline:
                 raise LinkTimeout(f"link '{link.url}': handshake: no HELLO from the controller within {timeout_s} s")
             if now >= next_send:
-                link.send_frame(frame)
+                try:
+                    link.send_frame(frame)
+                except LinkTimeout:
+                    pass  # a busy peer or machine: the HELLO is simply repeated at the next retry
+                except LinkError as err:
+                    if "timed out" not in str(err):
+                        raise
                 next_send = now + retry_s
             got = link.recv_frame(min(deadline, next_send) - now)
             if got is None:
