@@ -253,19 +253,37 @@ def _check_machine(cfg: Config) -> None:
             f"{src}: {p_e}: the curve reaches only {top:.0f} V at rated speed, below half the rated "
             f"voltage ({vr:g} V): curve and ratings disagree, got last point {es[-1]:g}"
         )
-    if conn in ("separate", "shunt"):
+    if conn != "series":
         fr = v["machine.field_resistance_ohm"] * (235.0 + v["machine.field_temp_C"]) / (235.0 + v["machine.resistance_ref_C"])
-        vf = fr * v["machine.rated_field_current_A"]
-        if conn == "shunt" and vf + v["machine.field_rheostat_ohm"] * v["machine.rated_field_current_A"] > 1.2 * vr:
+        vf = (fr + v["machine.field_rheostat_ohm"]) * v["machine.rated_field_current_A"]
+        if conn != "separate" and vf > 1.2 * vr:
             raise ConfigError(
                 f"{src}: machine.rated_field_current_A: a shunt field cannot carry it from the rated "
-                f"voltage ({vr:g} V): field circuit needs {vf:.0f} V, got {v['machine.rated_field_current_A']!r}"
+                f"voltage ({vr:g} V): field circuit with rheostat needs {vf:.0f} V, "
+                f"got {v['machine.rated_field_current_A']!r}"
             )
+    # rated excitation must lie on the measured curve, not on its extrapolation
+    rated_exc_key = "machine.rated_current_A" if series_like else "machine.rated_field_current_A"
+    if v[rated_exc_key] > xs[-1]:
+        raise ConfigError(
+            f"{src}: {rated_exc_key}: beyond the magnetization curve's last point ({xs[-1]:g} A): "
+            f"the EMF there would be extrapolated, got {v[rated_exc_key]!r}"
+        )
+    # keys that the connection ignores: said by `check`, not refused (templates share them)
+    if not compound and v["machine.series_turns_ratio"] is not None:
+        cfg.warnings.append(f"machine.series_turns_ratio is used by compound connections only; '{conn}' ignores it")
+    if series_like:
+        for path in ("machine.rated_field_current_A", "machine.field_resistance_ohm"):
+            if v[path] is not None:
+                cfg.warnings.append(f"{path}: a series machine has no shunt field; the value is ignored")
 
 
 def _check_converter(cfg: Config) -> None:
     src = cfg.source
     v = cfg.values
+    period = v["frame.period_us"]
+    if period is not None and period < 50.0:
+        raise ConfigError(f"{src}: frame.period_us: must be at least 50 us (a few model steps), got {period!r}")
     if v["bridge.alpha_min_deg"] >= v["bridge.alpha_max_deg"]:
         raise ConfigError(
             f"{src}: bridge.alpha_max_deg: must exceed alpha_min_deg ({v['bridge.alpha_min_deg']:g}), "

@@ -131,6 +131,14 @@ F3_X = [0.0, 2.0, 4.0, 6.0, 8.0, 10.0, 12.0, 14.0, 16.0, 18.0, 20.0, 24.0, 28.0]
 F3_E = [9.0, 95.0, 180.0, 255.0, 310.0, 345.0, 370.0, 388.0, 401.0, 412.0, 421.0, 435.0, 446.0]
 
 CASES = [
+    # --- connection-dependent rules added after the first review
+    Case("compound_field_cannot_carry_rated", "machines/kestrel_pinch_roll",
+         _set("machine.field_rheostat_ohm", 900.0),
+         key="machine.rated_field_current_A", words=("cannot carry it", "with rheostat")),
+    Case("rated_field_beyond_curve", "machines/kestrel_f3_stand", _set("machine.rated_field_current_A", 30.0),
+         key="machine.rated_field_current_A", words=("beyond the magnetization curve", "28 A")),
+    Case("frame_period_too_short", "converters/kestrel_f3_bridge", _set("frame.period_us", 10.0),
+         key="frame.period_us", words=("at least 50 us",)),
     # --- value types (host.config._check_type)
     Case("float_not_a_number", "machines/kestrel_f3_stand", _set("machine.ra_ohm", "0.02"),
          key="machine.ra_ohm", words=("must be a number",)),
@@ -478,3 +486,14 @@ def test_debug_flag_shows_the_traceback_instead(tmp_path):
     gone = tmp_path / "absent.toml"
     with pytest.raises(ConfigError):
         main(["--debug", "check", str(gone)])
+
+
+def test_ignored_keys_are_warned_by_check(tmp_path, capsys):
+    """A key the connection ignores is accepted but named by `dcrig check` (not refused)."""
+    src = (ROOT / "configs" / "machines" / "kestrel_shunt_fan.toml").read_text()
+    path = tmp_path / "fan.toml"
+    path.write_text(src.replace("[machine]\n", "[machine]\nseries_turns_ratio = 0.01\n", 1))
+    rc = main(["check", str(path)])
+    out, err = capsys.readouterr()
+    assert rc == 0, err
+    assert "warning: machine.series_turns_ratio is used by compound connections only" in out

@@ -33,7 +33,7 @@ def _fmt(v):
 def warnings_for(plant) -> list[str]:
     d = plant.derived
     v = plant.machine.values
-    out = []
+    out = list(plant.machine.warnings) + (list(plant.converter.warnings) if plant.converter else [])
     dt_us = v["sim.dt_us"]
     if dt_us > d["accurate_step_us"]:
         out.append(f"sim.dt_us {dt_us:g} us is above the accurate step {d['accurate_step_us']:.1f} us")
