@@ -410,6 +410,57 @@ def _passive(w0, w_free, dv):
     return 0.0
 
 
+BR_NONE = 0  # no bridge currents to integrate
+BR_FEEDS = 1  # the conducting bridge feeds the machine
+BR_DC_SHORT = 2  # the bridge output is shorted (armature flashover): its own loop
+BR_LOOP = 3  # no DC path, but two devices of one group form a line-to-line loop
+
+
+@njit(cache=True)
+def _stage(p, cc, i1, i2, w, pa, pb, pc, va, vb, vc, ra, rse, rsh, term, vth, rth, lth, di1_forced,
+           vsrc2, loop2_on, bmode, pol, rail0, rail1, rail2, rs, ls, speed_imposed, load_kind, t_set,
+           w_rated, j_total):
+    """One evaluation of all derivatives: machine loops, bridge line currents, shaft.
+
+    Returns (di1, di2, dia_line, dib_line, dic_line, dw, vt, ia, ise, immf, emf, kphi, te,
+    vfield, t_load, vth); vth is the Thevenin voltage used (the bridge's when it feeds).
+    Passive torques are not in dw: the caller applies them with _passive.
+    """
+    if bmode == BR_FEEDS:
+        up_, un_, kp, kn = _bridge_thevenin(rail0, rail1, rail2, va, vb, vc, pa, pb, pc, rs)
+        vth = pol * (up_ - un_)
+    d1, d2, vt, ia, ise, immf, emf, kphi, te, vfield = _machine(
+        p, cc, i1, i2, w, ra, rse, rsh, term, vth, rth, lth, di1_forced, vsrc2, loop2_on
+    )
+    dpa = 0.0
+    dpb = 0.0
+    dpc = 0.0
+    if bmode != BR_NONE:
+        up_, un_, kp, kn = _bridge_thevenin(rail0, rail1, rail2, va, vb, vc, pa, pb, pc, rs)
+        if bmode == BR_LOOP:
+            did = 0.0
+        elif bmode == BR_DC_SHORT:
+            did = (up_ - un_) / (ls * (1.0 / kp + 1.0 / kn))
+        else:
+            did = pol * d1
+        vpr = up_ - ls / kp * did if kp > 0 else 0.0
+        vnr = un_ + ls / kn * did if kn > 0 else 0.0
+        if rail0 != 0:
+            dpa = (va - rs * pa - (vpr if rail0 > 0 else vnr)) / ls
+        if rail1 != 0:
+            dpb = (vb - rs * pb - (vpr if rail1 > 0 else vnr)) / ls
+        if rail2 != 0:
+            dpc = (vc - rs * pc - (vpr if rail2 > 0 else vnr)) / ls
+    tf = p[P_VISCOUS_NM_S] * w
+    if speed_imposed:
+        dw = 0.0
+        tl = te - tf - p[P_COULOMB_NM] * _sign(w)
+    else:
+        tl = _load_torque(load_kind, t_set, w, w_rated)
+        dw = (te - tf - tl) / j_total
+    return d1, d2, dpa, dpb, dpc, dw, vt, ia, ise, immf, emf, kphi, te, vfield, tl, vth
+
+
 @njit(cache=True)
 def step_frame(x, p, u, y, n_sub):
     """Advance the model n_sub fixed steps of p[P_DT_S] and write the outputs.
@@ -854,43 +905,14 @@ def step_frame(x, p, u, y, n_sub):
 
         # ---------------- Heun step, conduction pattern frozen
         feeds = is_bridge and term == TERM_THEVENIN and not arm_short
-        if feeds:
-            up_, un_, kp, kn = _bridge_thevenin(rail0, rail1, rail2, va0, vb0, vc0, pa, pb, pc, rs)
-            vth0 = pol * (up_ - un_)
-        d1, d2, vt, ia, ise, immf, emf, kphi, te, vfield = _machine(
-            p, cc, i1, i2, w, ra, rse, rsh, term, vth0, rth, lth, di1_forced, vsrc2, loop2_on
+        bmode = BR_FEEDS if feeds else (BR_DC_SHORT if bridge_dc_short else (BR_LOOP if short_loop else BR_NONE))
+        d1, d2, dpa, dpb, dpc, dw, vt, ia, ise, immf, emf, kphi, te, vfield, tl, vth0 = _stage(
+            p, cc, i1, i2, w, pa, pb, pc, va0, vb0, vc0, ra, rse, rsh, term, vth0, rth, lth, di1_forced,
+            vsrc2, loop2_on, bmode, pol, rail0, rail1, rail2, rs, ls, speed_imposed, load_kind, t_set,
+            w_rated, j_total,
         )
-        # bridge phase-current derivatives, stage 1
-        dpa = 0.0
-        dpb = 0.0
-        dpc = 0.0
-        if feeds or bridge_dc_short or short_loop:
-            up_, un_, kp, kn = _bridge_thevenin(rail0, rail1, rail2, va0, vb0, vc0, pa, pb, pc, rs)
-            if short_loop:
-                did = 0.0
-            elif bridge_dc_short:
-                did = (up_ - un_) / (ls * (1.0 / kp + 1.0 / kn))
-            else:
-                did = pol * d1
-            vpr = up_ - ls / kp * did if kp > 0 else 0.0
-            vnr = un_ + ls / kn * did if kn > 0 else 0.0
-            if rail0 != 0:
-                dpa = (va0 - rs * pa - (vpr if rail0 > 0 else vnr)) / ls
-            if rail1 != 0:
-                dpb = (vb0 - rs * pb - (vpr if rail1 > 0 else vnr)) / ls
-            if rail2 != 0:
-                dpc = (vc0 - rs * pc - (vpr if rail2 > 0 else vnr)) / ls
-        # active torques in Heun's stages; passive ones (Coulomb friction, a passive constant
-        # load) applied after each stage by _passive
-        tf = p[P_VISCOUS_NM_S] * w
-        if speed_imposed:
-            dw = 0.0
-            tl = te - tf - p[P_COULOMB_NM] * _sign(w)
-        else:
-            tl = _load_torque(load_kind, t_set, w, w_rated)
-            dw = (te - tf - tl) / j_total
         vt_start = vt
-        # stage 2 at the Euler predictor
+        # stage 2 at the Euler predictor (passive torques applied to the predicted speed too)
         i1p = i1 + dt * d1
         i2p = i2 + dt * d2
         wp = _passive(w, w + dt * dw, dt * t_passive / j_total)
@@ -899,40 +921,12 @@ def step_frame(x, p, u, y, n_sub):
         pap = pa + dt * dpa
         pbp = pb + dt * dpb
         pcp = pc + dt * dpc
-        if feeds:
-            up_, un_, kp, kn = _bridge_thevenin(rail0, rail1, rail2, va1, vb1, vc1, pap, pbp, pcp, rs)
-            vth1 = pol * (up_ - un_)
-        e1, e2, vt2, ia2, ise2, immf2, emf2, kphi2, te2, vfield2 = _machine(
-            p, cc, i1p, i2p, wp, ra, rse, rsh, term, vth1, rth, lth,
-            (u[U_IREF_A] - i1p) / p[P_ISRC_TAU_S] if term == TERM_FORCED else 0.0,
-            vsrc2_end, loop2_on,
+        di1_forced2 = (u[U_IREF_A] - i1p) / p[P_ISRC_TAU_S] if term == TERM_FORCED else 0.0
+        e1, e2, epa, epb, epc, dw2, vt2, ia2, ise2, immf2, emf2, kphi2, te2, vfield2, tl2, vth1 = _stage(
+            p, cc, i1p, i2p, wp, pap, pbp, pcp, va1, vb1, vc1, ra, rse, rsh, term, vth1, rth, lth,
+            di1_forced2, vsrc2_end, loop2_on, bmode, pol, rail0, rail1, rail2, rs, ls, speed_imposed,
+            load_kind, t_set, w_rated, j_total,
         )
-        epa = 0.0
-        epb = 0.0
-        epc = 0.0
-        if feeds or bridge_dc_short or short_loop:
-            up_, un_, kp, kn = _bridge_thevenin(rail0, rail1, rail2, va1, vb1, vc1, pap, pbp, pcp, rs)
-            if short_loop:
-                did = 0.0
-            elif bridge_dc_short:
-                did = (up_ - un_) / (ls * (1.0 / kp + 1.0 / kn))
-            else:
-                did = pol * e1
-            vpr = up_ - ls / kp * did if kp > 0 else 0.0
-            vnr = un_ + ls / kn * did if kn > 0 else 0.0
-            if rail0 != 0:
-                epa = (va1 - rs * pap - (vpr if rail0 > 0 else vnr)) / ls
-            if rail1 != 0:
-                epb = (vb1 - rs * pbp - (vpr if rail1 > 0 else vnr)) / ls
-            if rail2 != 0:
-                epc = (vc1 - rs * pcp - (vpr if rail2 > 0 else vnr)) / ls
-        tf2 = p[P_VISCOUS_NM_S] * wp
-        if speed_imposed:
-            dw2 = 0.0
-            tl2 = te2 - tf2 - p[P_COULOMB_NM] * _sign(wp)
-        else:
-            tl2 = _load_torque(load_kind, t_set, wp, w_rated)
-            dw2 = (te2 - tf2 - tl2) / j_total
         h2 = 0.5 * dt
         i1n = i1 + h2 * (d1 + e1)
         i2n = i2 + h2 * (d2 + e2)
