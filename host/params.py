@@ -70,6 +70,7 @@ def pack(machine: Config, converter: Config | None = None) -> Plant:
     p[L.P_LA_H] = v["machine.la_H"]
     p[L.P_BRUSH_DROP_V] = v["machine.brush_drop_V"]
     p[L.P_BRUSH_KNEE_A] = v["machine.brush_knee_A"] or 0.01 * ir
+    p[L.P_BRUSH_INV_KNEE] = 1.0 / p[L.P_BRUSH_KNEE_A]
     p[L.P_RF_OHM] = v["machine.field_resistance_ohm"] or 0.0
     p[L.P_RHEO_OHM] = v["machine.field_rheostat_ohm"]
     p[L.P_LF_LEAK_H] = v["machine.field_leakage_H"]
@@ -77,6 +78,7 @@ def pack(machine: Config, converter: Config | None = None) -> Plant:
     p[L.P_LSE_LEAK_H] = v["machine.series_leakage_H"]
     p[L.P_LM0_H] = v["machine.field_inductance_H"]
     p[L.P_MAG_SPEED_RAD_S] = v["machine.magnetization.speed_rpm"] * RPM
+    p[L.P_MAG_INV_SPEED] = 1.0 / p[L.P_MAG_SPEED_RAD_S]
     pack_curve(
         p,
         np.array(v["machine.magnetization.field_current_A"]),

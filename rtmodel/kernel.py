@@ -60,7 +60,7 @@ from .layout import (
     P_ALPHA_MAX_RAD,
     P_ALPHA_MIN_RAD,
     P_BRUSH_DROP_V,
-    P_BRUSH_KNEE_A,
+    P_BRUSH_INV_KNEE,
     P_COMPOUND_SIGN,
     P_CONNECTION,
     P_COULOMB_NM,
@@ -82,8 +82,8 @@ from .layout import (
     P_LOAD_KIND,
     P_LS_H,
     P_LSE_LEAK_H,
-    P_MAG_SLOPE0,
-    P_MAG_SPEED_RAD_S,
+    P_MAG_INV_SLOPE0,
+    P_MAG_INV_SPEED,
     P_MAINS_HZ,
     P_MAINS_VLL_V,
     P_RA_OHM,
@@ -265,11 +265,10 @@ def _machine(p, cc, i1, i2, w, ra, rse, rsh, term, vth, rth, lth, di1_forced, vs
         if ieff > 0.0:
             ieff = 0.0
     e_c, de = curve_emf(p, ieff)
-    kphi = e_c / p[P_MAG_SPEED_RAD_S]
+    kphi = e_c * p[P_MAG_INV_SPEED]
     emf = kphi * w
-    lm = p[P_LM0_H] * de / p[P_MAG_SLOPE0]
-    knee = p[P_BRUSH_KNEE_A]
-    xb = ia / knee
+    lm = p[P_LM0_H] * de * p[P_MAG_INV_SLOPE0]
+    xb = ia * p[P_BRUSH_INV_KNEE]
     if xb > 1.0:
         xb = 1.0
     elif xb < -1.0:
@@ -316,8 +315,9 @@ def _machine(p, cc, i1, i2, w, ra, rse, rsh, term, vth, rth, lth, di1_forced, vs
         m22 = 1.0
         b2 = 0.0
     det = m11 * m22 - m12 * m21
-    di1 = (b1 * m22 - m12 * b2) / det
-    di2 = (m11 * b2 - m21 * b1) / det
+    inv_det = 1.0 / det
+    di1 = (b1 * m22 - m12 * b2) * inv_det
+    di2 = (m11 * b2 - m21 * b1) * inv_det
     vt = s1 + r11 * di1 + r12 * di2
     vfield = sh + ah1 * di1 + ah2 * di2
     te = kphi * ia

@@ -32,6 +32,8 @@ from .layout import (
     P_MAG_D0,
     P_MAG_E0,
     P_MAG_I0,
+    P_MAG_INV_SLOPE0,
+    P_MAG_INVH0,
     P_MAG_N,
     P_MAG_SLOPE0,
 )
@@ -78,6 +80,8 @@ def pack_curve(p, i_A, e_V, ar_ia_A=(), ar_if_A=()):
     p[P_MAG_E0 : P_MAG_E0 + n] = e_V
     p[P_MAG_D0 : P_MAG_D0 + n] = d
     p[P_MAG_SLOPE0] = float(np.max(np.diff(e_V) / np.diff(i_A)))
+    p[P_MAG_INV_SLOPE0] = 1.0 / p[P_MAG_SLOPE0]
+    p[P_MAG_INVH0 : P_MAG_INVH0 + n - 1] = 1.0 / np.diff(np.asarray(i_A, dtype=float))
     m = len(ar_ia_A)
     if m > AR_MAX_POINTS:
         raise ValueError(f"armature reaction table allows {AR_MAX_POINTS} points, got {m}")
@@ -107,11 +111,12 @@ def _curve_pos(p, i):
             hi = mid
     x0 = p[P_MAG_I0 + lo]
     h = p[P_MAG_I0 + hi] - x0
+    inv_h = p[P_MAG_INVH0 + lo]
     y0 = p[P_MAG_E0 + lo]
     y1 = p[P_MAG_E0 + hi]
     d0 = p[P_MAG_D0 + lo]
     d1 = p[P_MAG_D0 + hi]
-    t = (i - x0) / h
+    t = (i - x0) * inv_h
     t2 = t * t
     t3 = t2 * t
     h00 = 2.0 * t3 - 3.0 * t2 + 1.0
@@ -120,9 +125,9 @@ def _curve_pos(p, i):
     h11 = t3 - t2
     e = h00 * y0 + h10 * h * d0 + h01 * y1 + h11 * h * d1
     # derivative of the Hermite form
-    g00 = (6.0 * t2 - 6.0 * t) / h
+    g00 = (6.0 * t2 - 6.0 * t) * inv_h
     g10 = 3.0 * t2 - 4.0 * t + 1.0
-    g01 = (-6.0 * t2 + 6.0 * t) / h
+    g01 = (-6.0 * t2 + 6.0 * t) * inv_h
     g11 = 3.0 * t2 - 2.0 * t
     de = g00 * y0 + g10 * d0 + g01 * y1 + g11 * d1
     return e, de
