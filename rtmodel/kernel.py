@@ -416,16 +416,21 @@ BR_DC_SHORT = 2  # the bridge output is shorted (armature flashover): its own lo
 BR_LOOP = 3  # no DC path, but two devices of one group form a line-to-line loop
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _stage(p, cc, i1, i2, w, pa, pb, pc, va, vb, vc, ra, rse, rsh, term, vth, rth, lth, di1_forced,
-           vsrc2, loop2_on, bmode, pol, rail0, rail1, rail2, rs, ls, speed_imposed, load_kind, t_set,
-           w_rated, j_total):
+           vsrc2, loop2_on, br, mech):
     """One evaluation of all derivatives: machine loops, bridge line currents, shaft.
+
+    br = (bmode, pol, rail0, rail1, rail2, rs, ls); mech = (speed_imposed, load_kind, t_set,
+    w_rated, j_total). Grouped because a call with more than 30 arguments compiles to a
+    star-args call, which numba cannot inline.
 
     Returns (di1, di2, dia_line, dib_line, dic_line, dw, vt, ia, ise, immf, emf, kphi, te,
     vfield, t_load, vth); vth is the Thevenin voltage used (the bridge's when it feeds).
     Passive torques are not in dw: the caller applies them with _passive.
     """
+    bmode, pol, rail0, rail1, rail2, rs, ls = br
+    speed_imposed, load_kind, t_set, w_rated, j_total = mech
     if bmode == BR_FEEDS:
         up_, un_, kp, kn = _bridge_thevenin(rail0, rail1, rail2, va, vb, vc, pa, pb, pc, rs)
         vth = pol * (up_ - un_)
@@ -906,27 +911,46 @@ def step_frame(x, p, u, y, n_sub):
         # ---------------- Heun step, conduction pattern frozen
         feeds = is_bridge and term == TERM_THEVENIN and not arm_short
         bmode = BR_FEEDS if feeds else (BR_DC_SHORT if bridge_dc_short else (BR_LOOP if short_loop else BR_NONE))
-        d1, d2, dpa, dpb, dpc, dw, vt, ia, ise, immf, emf, kphi, te, vfield, tl, vth0 = _stage(
-            p, cc, i1, i2, w, pa, pb, pc, va0, vb0, vc0, ra, rse, rsh, term, vth0, rth, lth, di1_forced,
-            vsrc2, loop2_on, bmode, pol, rail0, rail1, rail2, rs, ls, speed_imposed, load_kind, t_set,
-            w_rated, j_total,
-        )
-        vt_start = vt
-        # stage 2 at the Euler predictor (passive torques applied to the predicted speed too)
-        i1p = i1 + dt * d1
-        i2p = i2 + dt * d2
-        wp = _passive(w, w + dt * dw, dt * t_passive / j_total)
-        if speed_imposed:
-            wp = w_imposed
-        pap = pa + dt * dpa
-        pbp = pb + dt * dpb
-        pcp = pc + dt * dpc
-        di1_forced2 = (u[U_IREF_A] - i1p) / p[P_ISRC_TAU_S] if term == TERM_FORCED else 0.0
-        e1, e2, epa, epb, epc, dw2, vt2, ia2, ise2, immf2, emf2, kphi2, te2, vfield2, tl2, vth1 = _stage(
-            p, cc, i1p, i2p, wp, pap, pbp, pcp, va1, vb1, vc1, ra, rse, rsh, term, vth1, rth, lth,
-            di1_forced2, vsrc2_end, loop2_on, bmode, pol, rail0, rail1, rail2, rs, ls, speed_imposed,
-            load_kind, t_set, w_rated, j_total,
-        )
+        br = (bmode, pol, rail0, rail1, rail2, rs, ls)
+        mech = (speed_imposed, load_kind, t_set, w_rated, j_total)
+        # Heun's two stages through one call site (numba inlines _stage once)
+        si1, si2, sw, spa, spb, spc = i1, i2, w, pa, pb, pc
+        sva, svb, svc, svth, sdf, svs = va0, vb0, vc0, vth0, di1_forced, vsrc2
+        d1 = d2 = dpa = dpb = dpc = dw = 0.0
+        e1 = e2 = epa = epb = epc = dw2 = 0.0
+        vt_start = 0.0
+        i1p = i2p = wp = pap = pbp = pcp = 0.0
+        for stg in range(2):
+            r1, r2, rpa, rpb, rpc, rw, vt, ia, ise, immf, emf, kphi, te, vfield, tl, rvth = _stage(
+                p, cc, si1, si2, sw, spa, spb, spc, sva, svb, svc, ra, rse, rsh, term, svth, rth, lth, sdf,
+                svs, loop2_on, br, mech,
+            )
+            if stg == 0:
+                d1, d2, dpa, dpb, dpc, dw, vth0 = r1, r2, rpa, rpb, rpc, rw, rvth
+                vt_start = vt
+                # the Euler predictor (passive torques applied to the predicted speed too)
+                i1p = i1 + dt * d1
+                i2p = i2 + dt * d2
+                wp = _passive(w, w + dt * dw, dt * t_passive / j_total)
+                if speed_imposed:
+                    wp = w_imposed
+                pap = pa + dt * dpa
+                pbp = pb + dt * dpb
+                pcp = pc + dt * dpc
+                si1, si2, sw, spa, spb, spc = i1p, i2p, wp, pap, pbp, pcp
+                sva, svb, svc, svth, svs = va1, vb1, vc1, vth1, vsrc2_end
+                sdf = (u[U_IREF_A] - i1p) / p[P_ISRC_TAU_S] if term == TERM_FORCED else 0.0
+            else:
+                e1, e2, epa, epb, epc, dw2, vth1 = r1, r2, rpa, rpb, rpc, rw, rvth
+        vt2 = vt
+        ia2 = ia
+        ise2 = ise
+        immf2 = immf
+        emf2 = emf
+        kphi2 = kphi
+        te2 = te
+        vfield2 = vfield
+        tl2 = tl
         h2 = 0.5 * dt
         i1n = i1 + h2 * (d1 + e1)
         i2n = i2 + h2 * (d2 + e2)
