@@ -43,10 +43,6 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-class _Parser(argparse.ArgumentParser):
-    pass
-
-
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)

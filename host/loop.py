@@ -27,7 +27,7 @@ import numpy as np
 from rtmodel import layout as L
 
 from . import signals as sig
-from .errors import ConfigError, LinkError
+from .errors import ConfigError
 from .params import Plant
 
 RAD2DEG = 180.0 / math.pi
@@ -59,9 +59,24 @@ class LoopStats:
     missed_commands: int = 0  # lockstep: frames advanced without a fresh command
     link_loss_events: int = 0
     deadline_misses: int = 0
-    host_work_ns: list = field(default_factory=list)  # per frame, filled from the record
     jitter_ns: np.ndarray | None = None
     granted: dict = field(default_factory=dict)  # what the OS allowed: priority, affinity, gc
+
+
+def warm_kernel(plant: Plant) -> float:
+    """Compile (first run) or load (cached) the step kernel before any deadline runs.
+
+    Returns the seconds it took. The first call on a fresh machine compiles for 30-60 s; a
+    controller waiting for the handshake must not be started before this returns.
+    """
+    import time as _time
+
+    t0 = _time.perf_counter()
+    from rtmodel.kernel import step_frame
+
+    x, u, y = plant.new_state(), plant.new_inputs(), np.zeros(L.N_OUTPUT)
+    step_frame(x, plant.p, u, y, 0)
+    return _time.perf_counter() - t0
 
 
 def frame_steps(plant: Plant, frame_period_us: int) -> tuple[int, float]:
@@ -80,6 +95,10 @@ class Sensors:
         self.contactor_delay_s = 0.04  # main contactor closing/opening time (common practice: tens of ms)
         self._contactor_closed = 0
         self._contactor_t = 0.0
+
+    @property
+    def contactor_closed(self) -> int:
+        return self._contactor_closed
 
     def contactor(self, cmd: int, t_s: float) -> int:
         """Feedback contact follows the command after the mechanical delay."""
@@ -230,7 +249,7 @@ class HostLoop:
         for hook in self.hooks:
             hook(self)
         self.apply_command(c)
-        self.u[L.U_CONTACTOR] = float(self.sensors._contactor_closed)
+        self.u[L.U_CONTACTOR] = float(self.sensors.contactor_closed)
         self._step(self.x, self.p, self.u, self.y, self.n_sub)
         if c.trip and not self._trip_logged:
             self._trip_logged = True
@@ -416,8 +435,3 @@ def jitter_table(jitter_ns: np.ndarray) -> dict:
         "p999_us": float(np.percentile(j, 99.9)),
         "max_us": float(np.max(j)),
     }
-
-
-def check_session_ok(session) -> None:
-    if session is None:
-        raise LinkError("no link session")

@@ -134,7 +134,6 @@ X_PULSE_VINT = _block("X_", ["PULSE_VINT"])  # integral of terminal voltage sinc
 X_PULSE_T_S = _block("X_", ["PULSE_T_S"])  # time since last pulse (s)
 X_PULSE_VAVG_V = _block("X_", ["PULSE_VAVG_V"])  # mean terminal voltage over the last pulse
 X_FIELD_CONV_ON = _block("X_", ["FIELD_CONV_ON"])  # field half bridge: 1 while a thyristor conducts
-X_FIELD_AVG_V = _block("X_", ["FIELD_AVG_V"])  # averaged field bridge: voltage latched at half cycle
 X_LAST_FIRED_UP = _block("X_", ["LAST_FIRED_UP"])  # index of the last upper thyristor turned on, -1 none
 X_LAST_FIRED_LOW = _block("X_", ["LAST_FIRED_LOW"])  # index of the last lower thyristor turned on
 X_LATCHED_ALPHA_RAD = _block("X_", ["LATCHED_ALPHA_RAD"])  # firing angle latched at the last instant

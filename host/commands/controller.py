@@ -22,6 +22,7 @@ def add_subparser(sub):
     p.add_argument("--settings", required=True, metavar="SETTINGS.toml", help="controller settings (docs/controller.md)")
     p.add_argument("--encoding", choices=("fixed", "float32"), help="expected encoding (default: whatever the host offers)")
     p.add_argument("--idle-timeout", type=float, default=5.0, metavar="S", help="give up after this long without feedback")
+    p.add_argument("--handshake-timeout", type=float, default=30.0, metavar="S", help="wait this long for the host's HELLO")
     p.add_argument("--quiet", action="store_true", help="print nothing but errors")
     p.set_defaults(func=_do_controller)
 
@@ -30,7 +31,7 @@ def _do_controller(args):
     from ..controller.process import run_controller
 
     summary = run_controller(args.link, args.settings, encoding=args.encoding,
-                             idle_timeout_s=args.idle_timeout)
+                             handshake_timeout_s=args.handshake_timeout, idle_timeout_s=args.idle_timeout)
     if not args.quiet:
         trips = summary.get("trips") or []
         print(f"controller: {summary.get('frames', 0)} frames, end: {summary.get('reason', '?')}, "

@@ -43,6 +43,7 @@ def add_subparser(sub):
 def _do_demo(args):
     from ..controller.settings import load_settings
     from ..link import VirtualCable
+    from ..loop import warm_kernel
     from ..runner import default_timeline, run_closed_loop
     from . import load_plant
 
@@ -52,12 +53,16 @@ def _do_demo(args):
     if not 0 <= args.load <= 2:
         raise ConfigError(f"--load: must be within [0, 2] per unit, got {args.load!r}")
     timeline = default_timeline(plant, args.load)
+    print("loading the model kernel (the first run on a machine compiles it: 30-60 s) ...", flush=True)
+    took = warm_kernel(plant)
+    if took > 2.0:
+        print(f"compiled in {took:.0f} s; later runs load it from the cache")
     with VirtualCable() as cable:
         env = dict(os.environ)
         env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
         proc = subprocess.Popen(
             [sys.executable, "-m", "host.cli", "controller", "--link", cable.slave_path,
-             "--settings", args.settings, "--quiet", "--idle-timeout", "10"],
+             "--settings", args.settings, "--quiet", "--idle-timeout", "10", "--handshake-timeout", "30"],
             env=env,
         )
         try:

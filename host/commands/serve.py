@@ -38,12 +38,14 @@ def add_subparser(sub):
 
 def _do_serve(args):
     from ..link import open_link
+    from ..loop import warm_kernel
     from ..runner import default_timeline, run_closed_loop
     from . import load_plant
 
     print(SAFETY + "\n")
     plant = load_plant(args)
     timeline = default_timeline(plant, args.load)
+    warm_kernel(plant)  # compile before the controller's handshake and before any deadline
     with open_link(args.link, baud=args.baud, parity=args.parity) as link:
         if getattr(link, "latency_timer_ms", None) is not None:
             print(f"USB-serial latency timer: {link.latency_timer_ms} ms")

@@ -40,7 +40,7 @@ def add_subparser(sub):
 
 
 def _do_sim(args):
-    from ..sim import Segment, parse_ramp, parse_step, plot, run_offline, write_csv, INPUTS
+    from ..sim import parse_ramp, parse_step, plot, run_offline, write_csv
     from . import load_plant
 
     if not (args.t_end > 0 and math.isfinite(args.t_end)):

@@ -27,7 +27,6 @@ from host.signals import (
     BRIDGE_REVERSE,
     FIELD_MODE_FIRING_ANGLE,
     FIELD_MODE_VOLTAGE,
-    MODE_CURRENT,
     MODE_FIRING_ANGLE,
     MODE_VOLTAGE,
     Command,

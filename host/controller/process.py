@@ -22,7 +22,7 @@ import time
 from host import signals as sig
 from host.controller.drive import DriveController
 from host.controller.settings import load_settings
-from host.errors import DcrigError, LinkError, LinkTimeout
+from host.errors import DcrigError, LinkTimeout
 
 
 class _OperatorOverrides:
