@@ -51,6 +51,9 @@ from host.link import Codec, HostSession, VirtualCable, cobs_encode, crc16  # no
 from host.link.frames import ENC_FIXED, ENC_FLOAT32, ENCODING_NAMES  # noqa: E402
 from host.params import pack  # noqa: E402
 
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from bench_model import cpu_model, load_avg  # noqa: E402  (shared report helpers)
+
 MACHINE = ROOT / "configs" / "machines" / "kestrel_f3_stand.toml"
 CONVERTER = ROOT / "configs" / "converters" / "kestrel_f3_dual.toml"
 SETTINGS = ROOT / "configs" / "controllers" / "kestrel_f3_dual.toml"
@@ -277,23 +280,6 @@ def closed_loop(encoding: str, n_frames: int, period_us: int | None, paced: bool
 
 
 # ------------------------------------------------------------------------------- report
-def cpu_model() -> str:
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.lower().startswith("model name"):
-                return line.split(":", 1)[1].strip()
-    except OSError:
-        pass
-    return platform.processor() or "unknown CPU"
-
-
-def load_avg() -> str:
-    try:
-        return " ".join(f"{v:.2f}" for v in os.getloadavg())
-    except OSError:
-        return "n/a"
-
-
 def md(head, rows) -> str:
     out = ["| " + " | ".join(head) + " |", "|" + "|".join("---" for _ in head) + "|"]
     out += ["| " + " | ".join(str(c).replace("|", "/") for c in r) + " |" for r in rows]
