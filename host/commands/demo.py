@@ -76,5 +76,6 @@ def _do_demo(args):
                 proc.wait()
     if loop.stats.frames == 0:
         raise LinkError("demo: the controller answered no command frame")
-    print("\nThis was a model. " + SAFETY.splitlines()[0])
+    print("\nThis was a model: it proves the controller's logic, not its wiring, sensors or the real")
+    print("machine. Energise real drives only under local electrical codes and licensed practice.")
     return 0
