@@ -1,0 +1,113 @@
+"""The closed-loop commands as a user runs them: `dcrig demo`, and `dcrig serve` on a TCP
+listening socket with `dcrig controller` connecting to it as a separate process.
+
+Every subprocess has a timeout; the checks read the printed summary and the written files.
+"""
+
+import csv
+import os
+import socket
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+from host.cli import main
+
+ROOT = Path(__file__).resolve().parents[1]
+TIMEOUT_S = 240
+
+
+def _env():
+    env = dict(os.environ)
+    env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
+    return env
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def _summary_value(text: str, prefix: str) -> str:
+    for line in text.splitlines():
+        if line.strip().startswith(prefix):
+            return line.strip()
+    raise AssertionError(f"no line starting {prefix!r} in:\n{text}")
+
+
+def test_demo_runs_start_to_stop(kernel, tmp_path, capsys):
+    out_dir = tmp_path / "demo"
+    rc = main(["demo", "--out", str(out_dir), "--no-plot"])
+    out, err = capsys.readouterr()
+    assert rc == 0, err
+    assert "CAUTION" in out and "licensed practice" in out
+    line = _summary_value(out, "frames ")
+    assert "frames without command 0" in line and "link-loss events 0" in line
+    assert "controller trips: none" in out
+    with (out_dir / "frames.csv").open() as fh:
+        rows = list(csv.DictReader(fh))
+    speeds = [float(r["speed_rpm"]) for r in rows]
+    # the stand reached rated speed (500 r/min) and was stopped again
+    assert max(speeds) > 495.0
+    assert abs(speeds[-1]) < 25.0
+    events = (out_dir / "events.csv").read_text()
+    assert "run" in events and "stop" in events
+
+
+def test_serve_on_tcp_with_controller_process(kernel, tmp_path):
+    port = _free_port()
+    machine = ROOT / "configs" / "machines" / "kestrel_f3_stand.toml"
+    converter = ROOT / "configs" / "converters" / "kestrel_f3_dual.toml"
+    settings = ROOT / "configs" / "controllers" / "kestrel_f3_dual.toml"
+    host = subprocess.Popen(
+        [sys.executable, "-m", "host.cli", "serve", str(machine), "--converter", str(converter),
+         "--link", f"tcp-listen://127.0.0.1:{port}", "--lockstep", "--out", str(tmp_path / "serve")],
+        env=_env(), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+    )
+    try:
+        # the controller connects as a client once the host listens; retry until it does
+        for _ in range(200):
+            if host.poll() is not None:
+                break
+            try:
+                with socket.create_connection(("127.0.0.1", port), timeout=0.2):
+                    pass
+                break
+            except OSError:
+                time.sleep(0.2)
+        ctrl = subprocess.run(
+            [sys.executable, "-m", "host.cli", "controller", "--link", f"socket://127.0.0.1:{port}",
+             "--settings", str(settings), "--idle-timeout", "10"],
+            env=_env(), capture_output=True, text=True, timeout=TIMEOUT_S,
+        )
+        out, err = host.communicate(timeout=TIMEOUT_S)
+    finally:
+        if host.poll() is None:
+            host.kill()
+            host.wait()
+    assert host.returncode == 0, err
+    assert ctrl.returncode == 0, ctrl.stderr
+    assert "end: bye" in ctrl.stdout and "trips: none" in ctrl.stdout, ctrl.stdout
+    assert "lockstep" in out
+    assert "frames without command 0" in _summary_value(out, "frames ")
+    assert (tmp_path / "serve" / "frames.csv").exists()
+
+
+@pytest.mark.parametrize("argv, words", [
+    (["serve", "configs/machines/kestrel_f3_stand.toml", "--link", "ftp://x"], ("link", "ftp://x")),
+    (["demo", "--load", "5"], ("--load", "[0, 2]")),
+    (["demo", "--settings", "configs/machines/kestrel_f3_stand.toml"], ("kestrel_f3_stand.toml",)),
+])
+def test_closed_loop_commands_refuse_bad_input_in_one_line(argv, words, capsys, monkeypatch):
+    monkeypatch.chdir(ROOT)
+    rc = main(argv)
+    out, err = capsys.readouterr()
+    assert rc == 2
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("error: "), err
+    for w in words:
+        assert w in lines[0], lines[0]
