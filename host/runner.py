@@ -86,8 +86,8 @@ def default_timeline(plant, rated_fraction_load: float = 0.6) -> Timeline:
 class StatusLine:
     """Live status on the terminal, refreshed at most every `every_s` of wall time."""
 
-    def __init__(self, out=sys.stdout, every_s: float = 0.4):
-        self.out = out
+    def __init__(self, out=None, every_s: float = 0.4):
+        self.out = out if out is not None else sys.stdout
         self.every_s = every_s
         self.tty = hasattr(out, "isatty") and out.isatty()
         self._last = 0.0
@@ -239,8 +239,9 @@ def send_bye(session) -> None:
 
 def run_closed_loop(plant, link, *, encoding: str, paced: bool, timeline: Timeline, out_dir,
                     watchdog_periods: int = 10, on_link_loss: str = "block", handshake_timeout_s: float = 20.0,
-                    plot: bool = True, out=sys.stdout) -> HostLoop:
+                    plot: bool = True, out=None) -> HostLoop:
     """Handshake on `link`, run the timeline lockstep or paced, print the summary, write files."""
+    out = out if out is not None else sys.stdout  # looked up per call (tests swap sys.stdout)
     from .link import HostSession
     from .loop import HostLoop
 

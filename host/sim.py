@@ -45,7 +45,12 @@ INPUTS = {
     "locked_rotor": (L.U_LOCKED_ROTOR, 1.0),
     "coupling_broken": (L.U_COUPLING_BROKEN, 1.0),
 }
-assert len({i for i, _ in INPUTS.values()}) == L.N_INPUT
+assert len({i for i, _ in INPUTS.values()}) == L.N_INPUT  # every model input has a name
+# a voltage reference for a bridge supply, turned into a firing angle by the arccos law
+# Vd = Vdo cos(alpha), Vdo = 3 sqrt(2)/pi V_LL (Mohan, Undeland, Robbins), as a
+# voltage-controlled converter front end would; not a model input of its own
+BRIDGE_VOLTAGE_REF = "bridge_voltage_ref_V"
+INPUTS[BRIDGE_VOLTAGE_REF] = (-1, 1.0)
 
 
 @dataclass(frozen=True)
@@ -107,12 +112,22 @@ def parse_ramp(text: str) -> Segment:
     return Segment(name, t0, t1, v0, v1)
 
 
-def apply_profile(u: np.ndarray, u_start: np.ndarray, segments: list[Segment], t_s: float) -> None:
-    """Set u for time t_s: the start value, then each segment in order (later ones win)."""
+def apply_profile(u: np.ndarray, u_start: np.ndarray, segments: list[Segment], t_s: float,
+                  vdo_V: float = 0.0) -> None:
+    """Set u for time t_s: the start value, then each segment in order (later ones win).
+
+    A bridge_voltage_ref_V segment sets the firing angle alpha = arccos(V / Vdo).
+    """
     u[:] = u_start
+    v_ref = None
     for seg in segments:
         idx, scale = INPUTS[seg.name]
+        if idx < 0:
+            v_ref = seg.value(t_s, 0.0 if v_ref is None else v_ref)
+            continue
         u[idx] = seg.value(t_s, u[idx] / scale) * scale
+    if v_ref is not None and vdo_V > 0.0:
+        u[L.U_ALPHA_DEG] = math.degrees(math.acos(max(-1.0, min(1.0, v_ref / vdo_V))))
 
 
 def run_offline(plant: Plant, t_end_s: float, sample_s: float, segments: list[Segment] = (), x=None):
@@ -130,10 +145,17 @@ def run_offline(plant: Plant, t_end_s: float, sample_s: float, segments: list[Se
     u_start = plant.new_inputs()
     u = u_start.copy()
     Y = np.zeros((n + 1, L.N_OUTPUT))
-    apply_profile(u, u_start, list(segments), 0.0)
+    segments = list(segments)
+    vdo = 0.0
+    if plant.converter is not None:
+        vdo = 3.0 * math.sqrt(2.0) / math.pi * float(plant.p[L.P_MAINS_VLL_V])
+    elif any(INPUTS[s_.name][0] < 0 for s_ in segments):
+        raise ConfigError(f"{BRIDGE_VOLTAGE_REF}: needs a bridge converter (--converter); "
+                          "a DC source takes terminal_voltage_V")
+    apply_profile(u, u_start, segments, 0.0, vdo)
     step_frame(x, plant.p, u, Y[0], 0)
     for k in range(n):
-        apply_profile(u, u_start, list(segments), x[L.X_TIME_S])
+        apply_profile(u, u_start, segments, x[L.X_TIME_S], vdo)
         status = step_frame(x, plant.p, u, Y[k + 1], n_sub)
         if status & L.ST_NONFINITE:
             Y = Y[: k + 2]
