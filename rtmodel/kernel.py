@@ -430,9 +430,14 @@ def _stage(p, cc, i1, i2, w, pa, pb, pc, va, vb, vc, ra, rse, rsh, term, vth, rt
     """
     bmode, pol, rail0, rail1, rail2, rs, ls = br
     speed_imposed, load_kind, t_set, w_rated, j_total = mech
-    if bmode == BR_FEEDS:
+    up_ = 0.0
+    un_ = 0.0
+    kp = 0
+    kn = 0
+    if bmode != BR_NONE:
         up_, un_, kp, kn = _bridge_thevenin(rail0, rail1, rail2, va, vb, vc, pa, pb, pc, rs)
-        vth = pol * (up_ - un_)
+        if bmode == BR_FEEDS:
+            vth = pol * (up_ - un_)
     d1, d2, vt, ia, ise, immf, emf, kphi, te, vfield = _machine(
         p, cc, i1, i2, w, ra, rse, rsh, term, vth, rth, lth, di1_forced, vsrc2, loop2_on
     )
@@ -440,7 +445,6 @@ def _stage(p, cc, i1, i2, w, pa, pb, pc, va, vb, vc, ra, rse, rsh, term, vth, rt
     dpb = 0.0
     dpc = 0.0
     if bmode != BR_NONE:
-        up_, un_, kp, kn = _bridge_thevenin(rail0, rail1, rail2, va, vb, vc, pa, pb, pc, rs)
         if bmode == BR_LOOP:
             did = 0.0
         elif bmode == BR_DC_SHORT:
