@@ -38,6 +38,13 @@ method keeps the error below 0.1 % of rated where forward Euler would need a ten
 step; and switching instants (firing, current zero) limit any method to first order at the
 step where they fall, so RK4's extra stages would be wasted. Stability needs dt < 2 tau_min;
 `dcrig check` prints tau_min and the step limits.
+
+Switching events inside a step: a firing instant is taken in the step whose midpoint passes
+it (never early or late on average); when an overlap ends inside a step, the rest of that
+step gets the new circuit's DC-current slope (first order), so the mean bridge voltage does
+not sag in proportion to the step. Passive torques (Coulomb friction, a passive constant
+load) are applied after each stage by _passive: they stop the shaft and hold it, exactly.
+The armature temperature takes one Euler step per call on the call's mean copper loss.
 """
 
 import math
