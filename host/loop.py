@@ -27,6 +27,7 @@ import numpy as np
 from rtmodel import layout as L
 
 from . import signals as sig
+from .controller import firing  # the bridge voltage laws (pure; shared with the controller)
 from .errors import ConfigError
 from .params import Plant
 
@@ -161,8 +162,8 @@ class HostLoop:
         self.hooks = []  # callables hook(loop) before each frame (scenario timeline, faults)
         self.supply = int(self.p[L.P_SUPPLY_KIND])
         self.field_kind = int(self.p[L.P_FIELD_SUPPLY_KIND])
-        self.vdo = 3.0 * math.sqrt(2.0) / math.pi * float(self.p[L.P_MAINS_VLL_V])
-        self.field_vdo = math.sqrt(2.0) / math.pi * float(self.p[L.P_FIELD_VAC_V])
+        self.vdo = firing.vdo(float(self.p[L.P_MAINS_VLL_V]))
+        self.field_vac = float(self.p[L.P_FIELD_VAC_V])
         self._step(self.x, self.p, self.u, self.y, 0)  # outputs of the initial state, compiles if needed
 
     # ------------------------------------------------------------------ mapping
@@ -175,20 +176,18 @@ class HostLoop:
             if self.supply == L.SUPPLY_DC:
                 u[L.U_VT_V] = cmd.armature_cmd
             else:  # a voltage-controlled converter: linearise here
-                c = max(-1.0, min(1.0, cmd.armature_cmd / self.vdo))
-                u[L.U_ALPHA_DEG] = math.degrees(math.acos(c))
+                u[L.U_ALPHA_DEG] = firing.bridge_alpha_deg(cmd.armature_cmd, self.vdo)
         else:
             u[L.U_IREF_A] = cmd.armature_cmd
         u[L.U_BRIDGE_SELECT] = cmd.bridge_select
         if cmd.field_mode == sig.FIELD_MODE_FIRING_ANGLE:
             u[L.U_FIELD_ALPHA_DEG] = cmd.field_cmd
             if self.field_kind == L.FIELD_SUPPLY_DC:
-                u[L.U_FIELD_V] = self.field_vdo * (1.0 + math.cos(math.radians(cmd.field_cmd)))
+                u[L.U_FIELD_V] = firing.half_bridge_voltage(cmd.field_cmd, self.field_vac)
         else:
             u[L.U_FIELD_V] = cmd.field_cmd
             if self.field_kind != L.FIELD_SUPPLY_DC:
-                c = max(-1.0, min(1.0, cmd.field_cmd / self.field_vdo - 1.0))
-                u[L.U_FIELD_ALPHA_DEG] = math.degrees(math.acos(c))
+                u[L.U_FIELD_ALPHA_DEG] = firing.half_bridge_alpha_deg(cmd.field_cmd, self.field_vac)
         if self.supply == L.SUPPLY_DC and cmd.bridge_select == sig.BRIDGE_BLOCKED:
             u[L.U_VT_V] = 0.0 if cmd.mode == sig.MODE_VOLTAGE else u[L.U_VT_V]
         u[L.U_CONTACTOR] = 1.0 if cmd.contactor else 0.0

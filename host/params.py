@@ -17,6 +17,7 @@ from rtmodel import layout as L
 from rtmodel.magnetization import curve_emf_py, pack_curve
 
 from .config import Config
+from .controller import firing
 from .errors import ConfigError
 
 RPM = math.pi / 30.0  # rad/s per r/min
@@ -170,11 +171,9 @@ def pack(machine: Config, converter: Config | None = None) -> Plant:
         vf = rf_hot * v["machine.rated_field_current_A"]
     u0[L.U_FIELD_V] = vf or 0.0
     if conn == L.CONN_SEPARATE and int(p[L.P_FIELD_SUPPLY_KIND]) != L.FIELD_SUPPLY_DC and vf:
-        # a field bridge starts at the angle that gives the rated field voltage:
-        # Vavg = (sqrt(2)/pi) Vac (1 + cos alpha) for the half-controlled single-phase bridge
-        c_f = vf / (math.sqrt(2.0) / math.pi * p[L.P_FIELD_VAC_V]) - 1.0
-        alpha_f = math.degrees(math.acos(max(-1.0, min(1.0, c_f))))
-        u0[L.U_FIELD_ALPHA_DEG] = max(alpha_f, math.degrees(p[L.P_FIELD_ALPHA_MIN_RAD]))
+        # a field bridge starts at the angle that gives the rated field voltage
+        u0[L.U_FIELD_ALPHA_DEG] = firing.half_bridge_alpha_deg(
+            vf, p[L.P_FIELD_VAC_V], math.degrees(p[L.P_FIELD_ALPHA_MIN_RAD]))
     plant = Plant(machine=machine, converter=converter, p=p, x0=x0, u0=u0)
     plant.derived = derive(plant)
     limit = plant.derived["stable_step_us"]

@@ -17,6 +17,7 @@ import numpy as np
 
 from rtmodel import layout as L
 
+from .controller import firing
 from .errors import ConfigError
 from .params import RPM, Plant
 
@@ -127,7 +128,7 @@ def apply_profile(u: np.ndarray, u_start: np.ndarray, segments: list[Segment], t
             continue
         u[idx] = seg.value(t_s, u[idx] / scale) * scale
     if v_ref is not None and vdo_V > 0.0:
-        u[L.U_ALPHA_DEG] = math.degrees(math.acos(max(-1.0, min(1.0, v_ref / vdo_V))))
+        u[L.U_ALPHA_DEG] = firing.bridge_alpha_deg(v_ref, vdo_V)
 
 
 def run_offline(plant: Plant, t_end_s: float, sample_s: float, segments: list[Segment] = (), x=None):
@@ -148,7 +149,7 @@ def run_offline(plant: Plant, t_end_s: float, sample_s: float, segments: list[Se
     segments = list(segments)
     vdo = 0.0
     if plant.converter is not None:
-        vdo = 3.0 * math.sqrt(2.0) / math.pi * float(plant.p[L.P_MAINS_VLL_V])
+        vdo = firing.vdo(float(plant.p[L.P_MAINS_VLL_V]))
     elif any(INPUTS[s_.name][0] < 0 for s_ in segments):
         raise ConfigError(f"{BRIDGE_VOLTAGE_REF}: needs a bridge converter (--converter); "
                           "a DC source takes terminal_voltage_V")

@@ -24,37 +24,31 @@ def vdo(v_ll_rms: float) -> float:
     return VDO_PER_VLL * v_ll_rms
 
 
-def bridge_alpha_deg(v_ref: float, v_do: float, alpha_min_deg: float, alpha_max_deg: float) -> float:
+def _acos_deg(c: float, alpha_min_deg: float, alpha_max_deg: float) -> float:
+    """arccos in degrees with c clipped to [-1, 1], then the angle clamped to the limits."""
+    if c >= 1.0:
+        a = 0.0
+    elif c <= -1.0:
+        a = 180.0
+    else:
+        a = math.degrees(math.acos(c))
+    if a < alpha_min_deg:
+        return alpha_min_deg
+    if a > alpha_max_deg:
+        return alpha_max_deg
+    return a
+
+
+def bridge_alpha_deg(v_ref: float, v_do: float, alpha_min_deg: float = 0.0,
+                     alpha_max_deg: float = 180.0) -> float:
     """Firing angle for a mean voltage v_ref: alpha = arccos(v_ref / Vdo), clamped."""
-    c = v_ref / v_do
-    if c >= 1.0:
-        a = 0.0
-    elif c <= -1.0:
-        a = 180.0
-    else:
-        a = math.degrees(math.acos(c))
-    if a < alpha_min_deg:
-        return alpha_min_deg
-    if a > alpha_max_deg:
-        return alpha_max_deg
-    return a
+    return _acos_deg(v_ref / v_do, alpha_min_deg, alpha_max_deg)
 
 
-def half_bridge_alpha_deg(v_ref: float, v_ac_rms: float, alpha_min_deg: float,
-                          alpha_max_deg: float) -> float:
+def half_bridge_alpha_deg(v_ref: float, v_ac_rms: float, alpha_min_deg: float = 0.0,
+                          alpha_max_deg: float = 180.0) -> float:
     """Firing angle of the half-controlled field bridge for a mean voltage v_ref."""
-    c = v_ref / (HALF_BRIDGE_K * v_ac_rms) - 1.0
-    if c >= 1.0:
-        a = 0.0
-    elif c <= -1.0:
-        a = 180.0
-    else:
-        a = math.degrees(math.acos(c))
-    if a < alpha_min_deg:
-        return alpha_min_deg
-    if a > alpha_max_deg:
-        return alpha_max_deg
-    return a
+    return _acos_deg(v_ref / (HALF_BRIDGE_K * v_ac_rms) - 1.0, alpha_min_deg, alpha_max_deg)
 
 
 def half_bridge_voltage(alpha_deg: float, v_ac_rms: float) -> float:
