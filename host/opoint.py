@@ -117,7 +117,8 @@ def circuit(plant: Plant, arm_temp_C: float | None = None, field_reversed: bool 
     t_a = float(plant.x0[L.X_TEMP_ARM_C]) if arm_temp_C is None else float(arm_temp_C)
     conn = int(p[L.P_CONNECTION])
     rfw = _copper(p[L.P_RF_OHM], t_f, t_ref)
-    kh = 0.0 if conn == L.CONN_SERIES else (-1.0 if field_reversed else 1.0)
+    # the config's machine.field_reversed (packed as P_FIELD_SIGN), and the caller's reversal on top
+    kh = 0.0 if conn == L.CONN_SERIES else float(p[L.P_FIELD_SIGN]) * (-1.0 if field_reversed else 1.0)
     ks = p[L.P_SE_TURNS_RATIO] * p[L.P_COMPOUND_SIGN]
     if conn == L.CONN_SERIES and field_reversed:
         ks = -ks

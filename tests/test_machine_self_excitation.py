@@ -13,11 +13,12 @@ Fitzgerald & Kingsley, Electric Machinery, DC generator chapters -
 The intersections are computed here from the curve with scipy's brentq, including Ra, the
 brush drop law and the field current flowing through the armature (open circuit).
 
-Reversed field connection: the model has no input for it. Driving the machine backwards is
-exactly equivalent in this model: with j the field current, a reversed connection obeys
+Reversed field connection: the config key machine.field_reversed connects the shunt field the
+other way round; driving the machine backwards is exactly equivalent in this model, which gives
+an independent check of the key: with j the field current, a reversed connection obeys
 R j + L dj/dt = E(-j) w / w_c, and backwards rotation obeys R j' + L dj'/dt = E(j') (-w) / w_c;
 substituting j' = -j turns one into the other (Ra, the brush drop and the leakage are odd in
-the current). So the reversed connection is tested as backwards rotation.
+the current). So the reversed connection is tested both ways and against each other.
 """
 
 from __future__ import annotations
@@ -167,3 +168,30 @@ def test_reversed_residual_builds_up_with_reversed_polarity(kernel, tmp_path):
     print(f"\nreversed residual: model {Y[-1, L.Y_IF_A]:.5f} A, mirror point {-i_up:.5f} A")
     assert abs(Y[-1, L.Y_IF_A] + i_up) < 1e-3 * i_up
     assert Y[-1, L.Y_VT_V] < -0.5 * 440.0
+
+
+def test_field_reversed_key_fails_to_build_up_like_backwards_rotation(kernel, tmp_path):
+    """machine.field_reversed = true (the shunt field connected the other way round) at forward
+    speed must give the same collapse as the backwards-rotation equivalent above: the field
+    current settles at the mirrored near-residual root, the EMF stays below the residual."""
+    plant, m = _gen(tmp_path)
+    path = R.write_machine(tmp_path, "shunt_gen_reversed", R.machine_toml(R.SHUNT, "generator", load="prime_mover"))
+    over = (f"machine.field_inductance_H={L_FIELD_H}", "machine.field_rheostat_ohm=0.0",
+            "machine.thermal.frozen=true", "machine.thermal.initial_C=40.0",
+            "machine.rated_field_current_A=0.5", "machine.field_reversed=true")
+    plant_rev = R.load_plant(path, over)
+    w = 1500 * RPM
+    t, Y = _run_open(kernel, plant_rev, m, w, 2.0)
+    e_res = m.curve.e_res * w / m.curve.w_c
+    roots_backwards = _field_line_roots(m, -w)  # the equivalent circuit, solved independently
+    expect = -roots_backwards[0]  # j' = -j: the reversed winding carries the opposite current
+    i_end = Y[-1, L.Y_IF_A]
+    print(f"\nfield reversed at 1500 r/min: field {i_end:.5f} A (expected {expect:.5f} A), "
+          f"EMF {Y[-1, L.Y_EMF_V]:.3f} V vs residual {e_res:.3f} V")
+    assert abs(i_end - expect) < 1e-3 * abs(expect)
+    assert 0.0 < Y[-1, L.Y_EMF_V] < e_res
+    # and the op solver agrees that no built-up point exists
+    from host import opoint
+
+    op = opoint.solve_generator(plant_rev, 1500.0)
+    assert not op.found or abs(op.state.vt) < e_res
