@@ -128,7 +128,7 @@ class HostLoop:
     """
 
     def __init__(self, plant: Plant, session, frame_period_us: int, watchdog_periods: int = 10,
-                 on_link_loss: str = "block", max_frames: int = 1_000_000, clock=time.perf_counter_ns):
+                 on_link_loss: str = "block", record_rows: int = 65536, clock=time.perf_counter_ns):
         if on_link_loss not in ("block", "hold"):
             raise ConfigError(f"link: on_link_loss: expected one of ['block', 'hold'], got {on_link_loss!r}")
         from rtmodel.kernel import step_frame
@@ -150,7 +150,7 @@ class HostLoop:
         self.clock = clock
         self.sensors = Sensors(plant)
         self.operator = Operator()
-        self.record = np.zeros((max_frames, len(REC_COLUMNS)))
+        self.record = np.zeros((record_rows, len(REC_COLUMNS)))  # doubles when full
         self.n_rec = 0
         self.events: list[tuple[float, str, str]] = []  # (time_s, kind, text)
         self.stats = LoopStats()

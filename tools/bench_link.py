@@ -216,7 +216,7 @@ def closed_loop(encoding: str, n_frames: int, period_us: int | None, paced: bool
         session = HostSession(link, encoding=encoding, frame_period_us=period)
         # HostLoop makes the first kernel call (a compile when the numba cache is stale):
         # before the controller starts, so its handshake timeout cannot run out meanwhile
-        loop = HostLoop(plant, session, period, max_frames=n_frames + WARMUP_FRAMES + 8)
+        loop = HostLoop(plant, session, period, record_rows=n_frames + WARMUP_FRAMES + 8)
         timer = FrameTimer(link, session)
         proc = subprocess.Popen(
             [sys.executable, "-m", "host.cli", "controller", "--link", cable.slave_path,
