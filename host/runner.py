@@ -19,6 +19,7 @@ import numpy as np
 from rtmodel import layout as L
 
 from . import signals as sig
+from .errors import DcrigError
 from .loop import REC_COLUMNS, R, HostLoop, jitter_table
 
 
@@ -257,16 +258,21 @@ def run_closed_loop(plant, link, *, encoding: str, paced: bool, timeline: Timeli
     loop.hooks.append(timeline)
     status = StatusLine(out)
     t0 = time.perf_counter()
+    stopped = None
     try:
         if paced:
             loop.run_paced(n_frames, on_frame=status)
         else:
             loop.run_lockstep(n_frames, on_frame=status, command_timeout_s=max(0.2, 2.0))
+    except (KeyboardInterrupt, DcrigError) as err:
+        # keep what was recorded: summary and files first, then the error goes on
+        stopped = err
+        loop.event("host", f"run stopped early: {err.__class__.__name__}: {err}".rstrip(": "))
     finally:
         wall = time.perf_counter() - t0
         status.close()
         send_bye(session)
-    print("\nsummary", file=out)
+    print("\nsummary" + (" (run stopped early)" if stopped else ""), file=out)
     for line in summary_lines(loop, timeline, wall):
         print("  " + line, file=out)
     if paced and loop.stats.jitter_ns is not None and len(loop.stats.jitter_ns):
@@ -277,4 +283,6 @@ def run_closed_loop(plant, link, *, encoding: str, paced: bool, timeline: Timeli
     if out_dir is not None:
         files = write_outputs(loop, Path(out_dir), plant.machine["machine.name"] + " - closed loop", plot=plot)
         print(f"  files: {', '.join(str(f) for f in files.values())}", file=out)
+    if stopped is not None:
+        raise stopped
     return loop

@@ -134,3 +134,39 @@ def test_sim_refuses_a_bridge_voltage_without_a_bridge(capsys):
                "--set-input", "bridge_voltage_ref_V=300", "--out", "/tmp/never.csv"])
     err = capsys.readouterr().err
     assert rc == 2 and err.startswith("error: bridge_voltage_ref_V: needs a bridge converter")
+
+
+def test_an_interrupted_run_keeps_what_it_recorded(kernel, tmp_path, capsys):
+    """Ctrl-C (or a link error) mid-run: the summary and the frame record of the frames run so
+    far are still written, then the interruption goes on to the caller."""
+    import threading
+
+    from host.controller.process import run_controller
+    from host.link import VirtualCable
+    from host.runner import Timeline, TimelineStep, run_closed_loop
+    from tests.conftest import make_plant
+
+    plant = make_plant("kestrel_f3_stand", "kestrel_f3_dual")
+    stop_after = 300
+
+    class Interrupt(Timeline):
+        def __call__(self, loop):
+            super().__call__(loop)
+            if loop.stats.frames >= stop_after:
+                raise KeyboardInterrupt
+
+    timeline = Interrupt([TimelineStep(0.1, "run"), TimelineStep(5.0, "stop")])
+    settings = ROOT / "configs" / "controllers" / "kestrel_f3_dual.toml"
+    with VirtualCable() as cable:
+        ctl = threading.Thread(target=run_controller, args=(cable.controller_link(), settings),
+                               kwargs={"idle_timeout_s": 5.0}, daemon=True)
+        ctl.start()
+        with pytest.raises(KeyboardInterrupt):
+            run_closed_loop(plant, cable.host_link(), encoding="fixed", paced=False, timeline=timeline,
+                            out_dir=tmp_path / "cut", plot=False)
+        ctl.join(timeout=10)
+    out = capsys.readouterr().out
+    assert "summary (run stopped early)" in out
+    with (tmp_path / "cut" / "frames.csv").open() as fh:
+        assert len(list(csv.DictReader(fh))) == stop_after
+    assert "run stopped early: KeyboardInterrupt" in (tmp_path / "cut" / "events.csv").read_text()
