@@ -31,7 +31,7 @@ Machinery Fundamentals, DC generator/motor chapters - circuit diagrams, from mem
     long shunt     terminal = armature + series = shunt field; ise = ia;  i_line = ia + ish
     short shunt    shunt field = armature; terminal = shunt + series; ise = i_line = ia + ish
 Terminal: a Thevenin source (vth, rth), or open (i_line held at zero).
-Copper resistance correction (IEC 60034-1, 235 degC for copper): R(T) = R_ref (235+T)/(235+T_ref).
+Copper resistance correction (IEC 60034-1, 235 degC for copper, from memory): R(T) = R_ref (235+T)/(235+T_ref).
 """
 
 from __future__ import annotations
@@ -58,7 +58,7 @@ SHUNT_TYPES = (SHUNT, LONG_SHUNT, SHORT_SHUNT)
 
 
 def copper_ohm(r_ref_ohm: float, temp_c: float, ref_c: float) -> float:
-    """IEC 60034-1 copper law: R2/R1 = (235 + theta2) / (235 + theta1)."""
+    """IEC 60034-1 copper law (from memory): R2/R1 = (235 + theta2) / (235 + theta1)."""
     return r_ref_ohm * (COPPER_K + temp_c) / (COPPER_K + ref_c)
 
 

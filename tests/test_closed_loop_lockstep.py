@@ -214,7 +214,7 @@ def test_two_lockstep_runs_give_identical_frame_records(kernel, name):
 @pytest.mark.parametrize("name", ["pinch_roll", "shunt_fan"])
 def test_field_across_the_terminals_obeys_ohms_law(kernel, name):
     """In steady state the mean shunt-field current is the mean terminal voltage over the hot
-    field-circuit resistance (Ohm's law; copper at 75 C, IEC 60034-1: R2/R1 = (235+T2)/(235+T1)).
+    field-circuit resistance (Ohm's law; copper at 75 C, IEC 60034-1, from memory: R2/R1 = (235+T2)/(235+T1)).
     Both machines have their shunt field across the terminals (long shunt / plain shunt)."""
     loop, _ = cached_run(name)
     rows = loop.rows()

@@ -7,7 +7,7 @@ E = E_curve(i_excitation) w / w_curve; shunt, series and compound excitation as 
 textbook, written here from memory) solved with scipy.optimize.brentq, the curve interpolated
 with scipy.interpolate.PchipInterpolator (independent of rtmodel's own curve code; operating
 points lie between the knots, where both use the Fritsch-Carlson slopes). Copper resistance at
-temperature: IEC 60034-1, R2/R1 = (235 + t2)/(235 + t1). The armature temperature is frozen at
+temperature: IEC 60034-1 (from memory), R2/R1 = (235 + t2)/(235 + t1). The armature temperature is frozen at
 the ambient so the reference and the model use the same resistance.
 Short runs only (20 us step, 8-22 s simulated, about 0.1 s each).
 """
@@ -39,7 +39,7 @@ def _cfg(stem: str) -> dict:
 
 
 def _copper(r, t, t_ref=20.0):
-    return r * (235.0 + t) / (235.0 + t_ref)  # IEC 60034-1
+    return r * (235.0 + t) / (235.0 + t_ref)  # IEC 60034-1 copper law (from memory)
 
 
 class Ref:

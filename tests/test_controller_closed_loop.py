@@ -184,7 +184,7 @@ if __name__ == "__main__":  # tuning aid: prints a coarse trace
 
 def test_kestrel_f3_settles_within_1_percent_after_acceleration():
     # plant constants from configs/machines/kestrel_f3_stand.toml: Ra, La, J = 62 + 48 kg m^2,
-    # EMF per rpm at rated field from the nameplate (440 V - Ra*I - 2 V brushes) / 500 rpm
+    # EMF per rpm at rated field from the nameplate (440 V - Ra*I - 2 V brushes, common practice) / 500 rpm
     s = load_settings(CFG / "kestrel_f3_stand.toml").replace({"field.mode": "voltage"})
     ctrl = DriveController(s)
     kphi = (440.0 - 0.0175 * 1040.0 - 2.0) / 500.0

@@ -158,7 +158,7 @@ def test_shunt_motor_given_line_current(tmp_path):
 
 
 def test_shunt_motor_rheostat_and_copper_correction(tmp_path):
-    # field winding 150 ohm at 40 degC measured, run at 75 degC (IEC 60034-1:
+    # field winding 150 ohm at 40 degC measured, run at 75 degC (IEC 60034-1, from memory:
     # R2 = R1 (235 + t2)/(235 + t1)), plus 20 ohm rheostat
     plant = tiny(tmp_path, "shunt", rf=150.0, rheo=20.0,
                  overrides=["machine.field_temp_C=75.0", "machine.thermal.initial_C=95.0"])
