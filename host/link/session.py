@@ -182,6 +182,30 @@ class _Session:
         ev, self.events = self.events, []
         return ev
 
+    def _recv_periodic(self, kind_byte: int, take, timeout_s: float):
+        """Wait for the next periodic frame of kind_byte that take(frame) accepts (it returns
+        the decoded frame or None); other frames go to _other as events. None on timeout or
+        once the peer said BYE."""
+        if self.bye:
+            return None
+        link = self.link
+        deadline = time.perf_counter() + timeout_s
+        remaining = timeout_s
+        while True:
+            frame = link.recv_frame(remaining)
+            if frame is not None:
+                if frame[0] == kind_byte:
+                    got = take(frame)
+                    if got is not None:
+                        return got
+                else:
+                    self._other(frame)
+                    if self.bye:
+                        return None
+            remaining = deadline - time.perf_counter()
+            if remaining <= 0.0:
+                return None
+
     def send_control(self, op_or_msg, value: float = 0.0, text: str = "") -> None:
         msg = op_or_msg if isinstance(op_or_msg, sig.ControlMessage) else sig.ControlMessage(op_or_msg, value, text)
         self.link.send_frame(self.codec.pack_control(msg, (self.tx_seq - 1) & 0xFFFF))
@@ -278,26 +302,7 @@ class HostSession(_Session):
 
     def recv_command(self, timeout_s: float) -> sig.Command | None:
         """The next valid, in-order command; other frames are counted or queued as events."""
-        if self.bye:
-            return None
-        link = self.link
-        deadline = time.perf_counter() + timeout_s
-        remaining = timeout_s
-        kb_command = self.codec.kb_command
-        while True:
-            frame = link.recv_frame(remaining)
-            if frame is not None:
-                if frame[0] == kb_command:
-                    cmd = self._command(frame)
-                    if cmd is not None:
-                        return cmd
-                else:
-                    self._other(frame)
-                    if self.bye:
-                        return None
-            remaining = deadline - time.perf_counter()
-            if remaining <= 0.0:
-                return None
+        return self._recv_periodic(self.codec.kb_command, self._command, timeout_s)
 
     def _command(self, frame: bytes) -> sig.Command | None:
         try:
@@ -399,31 +404,16 @@ class ControllerSession(_Session):
         return peer
 
     def recv_feedback(self, timeout_s: float) -> sig.Feedback | None:
-        if self.bye:
+        return self._recv_periodic(self.codec.kb_feedback, self._feedback, timeout_s)
+
+    def _feedback(self, frame: bytes) -> sig.Feedback | None:
+        try:
+            fb = self.codec.unpack_feedback(frame)
+        except fr.FrameError as err:
+            self.bad_frames += 1
+            self._problem(str(err))
             return None
-        link = self.link
-        deadline = time.perf_counter() + timeout_s
-        remaining = timeout_s
-        kb_feedback = self.codec.kb_feedback
-        while True:
-            frame = link.recv_frame(remaining)
-            if frame is not None:
-                if frame[0] == kb_feedback:
-                    try:
-                        fb = self.codec.unpack_feedback(frame)
-                    except fr.FrameError as err:
-                        self.bad_frames += 1
-                        self._problem(str(err))
-                        fb = None
-                    if fb is not None and self.rx.accept(fb.seq):
-                        return fb
-                else:
-                    self._other(frame)
-                    if self.bye:
-                        return None
-            remaining = deadline - time.perf_counter()
-            if remaining <= 0.0:
-                return None
+        return fb if self.rx.accept(fb.seq) else None
 
     def _other(self, frame: bytes) -> None:
         kind = fr.frame_kind(frame)
