@@ -117,7 +117,7 @@ def run(ctrl, plant, t_end_s, ref_rpm, trace=None, op_run=1, load_change=None):
 
 
 def mill():
-    s = load_settings(CFG / "harrowgate_mill_400kw.toml")
+    s = load_settings(CFG / "kestrel_bench_mill.toml")
     # the plant below has a voltage-fed field and flux linear in field current
     return s.replace({"field.mode": "voltage", "motor.magnetisation_if_pu": [0.0, 1.0],
                       "motor.magnetisation_phi_pu": [0.0, 1.0]})

@@ -16,7 +16,7 @@ from host.controller import TripCode
 from host.controller.process import run_controller
 
 ROOT = Path(__file__).resolve().parents[1]
-SETTINGS = ROOT / "configs" / "controllers" / "harrowgate_mill_400kw.toml"
+SETTINGS = ROOT / "configs" / "controllers" / "kestrel_bench_mill.toml"
 PERIOD_US = 3333
 
 pytestmark = pytest.mark.skipif(os.name != "posix", reason="virtual cables need pseudo-terminals")
