@@ -65,7 +65,7 @@ def test_serve_on_tcp_with_controller_process(kernel, tmp_path):
     settings = ROOT / "configs" / "controllers" / "kestrel_f3_dual.toml"
     host = subprocess.Popen(
         [sys.executable, "-m", "host.cli", "serve", str(machine), "--converter", str(converter),
-         "--link", f"tcp-listen://127.0.0.1:{port}", "--lockstep", "--out", str(tmp_path / "serve")],
+         "--link", f"accept://127.0.0.1:{port}", "--lockstep", "--out", str(tmp_path / "serve")],
         env=_env(), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
     )
     try:
