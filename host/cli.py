@@ -9,17 +9,27 @@ from __future__ import annotations
 import argparse
 import importlib
 import sys
+import textwrap
 
 from .errors import DcrigError
 
 # one module per subcommand under host.commands, each with add_subparser(subparsers)
-COMMANDS = ("check", "op", "sim", "demo", "serve", "controller")
+COMMANDS = ("check", "steady", "sim", "demo", "serve", "controller")
 
-SAFETY = (
-    "CAUTION: dcrig models a machine; it does not make a real one safe. Energise real drives only\n"
-    "under your site's lock-out rules, local electrical codes and licensed practice. An unloaded\n"
-    "series motor runs away; a shunt motor that loses its field overspeeds; armature and field\n"
-    "inductances store energy that arcs when broken. Never rely on a simulated trip for safety."
+# The deferral every caution ends with: the help of every command, the README, the docs'
+# caution boxes, the config-reference generator and the C library's header carry this exact
+# sentence (tests/test_cautions.py checks them all against this string).
+DEFER_TO_CODES = (
+    "Follow local electrical codes and licensed practice, and leave the wiring, energising and "
+    "protection of a real drive to a qualified person; nothing in dcrig replaces them."
+)
+
+SAFETY = textwrap.fill(
+    "CAUTION: dcrig models a machine; it does not make a real one safe. An unloaded series motor "
+    "runs away; a shunt motor that loses its field overspeeds; armature and field inductances "
+    "store energy that arcs when broken. Never rely on a simulated trip for safety. Keep to your "
+    "site's lock-out rules. " + DEFER_TO_CODES,
+    width=92,
 )
 
 

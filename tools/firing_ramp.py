@@ -24,7 +24,7 @@ sys.path.insert(0, str(ROOT))
 
 from host.config import load  # noqa: E402
 from host.params import pack  # noqa: E402
-from host.sim import parse_ramp, parse_step, plot, run_offline  # noqa: E402
+from host.sim import parse_change, parse_ramp, plot, run_offline  # noqa: E402
 from rtmodel import layout as L  # noqa: E402
 
 CASES = [
@@ -52,7 +52,7 @@ def run_case(case, out: Path) -> dict:
     m = load("machine", ROOT / "configs" / "machines" / f"{machine}.toml", m_over)
     c = load("converter", ROOT / "configs" / "converters" / f"{conv}.toml", c_over)
     plant = pack(m, c)
-    segs = [parse_step(s) for s in steps] + [parse_ramp(r) for r in ramps]
+    segs = [parse_change(s) for s in steps] + [parse_ramp(r) for r in ramps]
     t, Y = run_offline(plant, t_end, plant.dt_s * 5, segs)
     st = Y[:, L.Y_STATUS].astype(int)
     dcm = (st & L.ST_DISCONTINUOUS) != 0

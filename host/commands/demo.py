@@ -8,7 +8,7 @@ import subprocess
 import sys
 from pathlib import Path
 
-from ..cli import SAFETY
+from ..cli import DEFER_TO_CODES, SAFETY
 from ..errors import ConfigError, LinkError
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -77,5 +77,5 @@ def _do_demo(args):
     if loop.stats.frames == 0:
         raise LinkError("demo: the controller answered no command frame")
     print("\nThis was a model: it proves the controller's logic, not its wiring, sensors or the real")
-    print("machine. Energise real drives only under local electrical codes and licensed practice.")
+    print("machine. " + DEFER_TO_CODES)
     return 0
