@@ -9,14 +9,14 @@ once per pulse (common practice, no source).
 from __future__ import annotations
 
 import math
-from pathlib import Path
 
 import pytest
 
 from host.controller import DriveController, load_settings
+from host.shipped import shipped_dir
 from host.signals import BRIDGE_BLOCKED, BRIDGE_REVERSE, Command, Feedback
 
-CFG = Path(__file__).resolve().parents[1] / "configs" / "controllers"
+CFG = shipped_dir("controllers")
 DT = 1.0 / 300.0
 
 

@@ -5,11 +5,11 @@ from __future__ import annotations
 
 import math
 import random
-from pathlib import Path
 
 import pytest
 
 from host.controller import DriveController, TripCode, load_settings
+from host.shipped import shipped_dir
 from host.signals import (
     BRIDGE_BLOCKED,
     BRIDGE_FORWARD,
@@ -19,7 +19,7 @@ from host.signals import (
     Feedback,
 )
 
-CFG = Path(__file__).resolve().parents[1] / "configs" / "controllers"
+CFG = shipped_dir("controllers")
 DT = 1.0 / 300.0
 MAX_FRAMES = 20000  # every loop below has this bound (a wait with a timeout)
 

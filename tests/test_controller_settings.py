@@ -11,9 +11,10 @@ import pytest
 from host.controller import DriveController
 from host.controller.settings import KEYS, REQUIRED, from_dict, load_settings
 from host.errors import ConfigError
+from host.shipped import shipped_dir
 
 ROOT = Path(__file__).resolve().parents[1]
-CFG = ROOT / "configs" / "controllers"
+CFG = shipped_dir("controllers")
 DOC = ROOT / "docs" / "controller.md"
 MILL = CFG / "kestrel_bench_mill.toml"
 
