@@ -15,6 +15,9 @@ from .errors import DcrigError
 
 # one module per subcommand under host.commands, each with add_subparser(subparsers)
 COMMANDS = ("check", "steady", "sim", "demo", "serve", "controller")
+# old command names that still work for one release, listed nowhere (not in help, not in the
+# invalid-choice message): main() swaps them for the new name and prints a note
+HIDDEN_ALIASES = {"op": "steady"}
 
 # The deferral every caution ends with: the help of every command, the README, the docs'
 # caution boxes, the config-reference generator and the C library's header carry this exact
@@ -53,8 +56,22 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _swap_hidden_alias(argv: list[str]) -> list[str]:
+    for i, word in enumerate(argv):
+        if word.startswith("-"):
+            continue  # a global option such as --debug
+        if word in HIDDEN_ALIASES:
+            new = HIDDEN_ALIASES[word]
+            print(f"note: `dcrig {word}` is renamed to `dcrig {new}`; the old name goes in the next release",
+                  file=sys.stderr)
+            return [*argv[:i], new, *argv[i + 1:]]
+        break
+    return argv
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
+    argv = _swap_hidden_alias(list(sys.argv[1:] if argv is None else argv))
     args = parser.parse_args(argv)
     if not getattr(args, "func", None):
         parser.print_help()

@@ -42,10 +42,8 @@ def _help_texts() -> dict[str, str]:
     parser = build_parser()
     sub = next(a for a in parser._actions if isinstance(a, argparse._SubParsersAction))
     out = {"dcrig --help": parser.format_help()}
-    shown = {a.dest for a in sub._choices_actions}  # the listed commands; hidden aliases are not
     for name, p in sub.choices.items():
-        if name in shown:
-            out[f"dcrig {name} --help"] = p.format_help()
+        out[f"dcrig {name} --help"] = p.format_help()
     return out
 
 

@@ -95,3 +95,6 @@ def test_old_name_op_is_hidden_from_the_command_list():
                        text=True, timeout=60, env={"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin"})
     assert p.returncode == 0 and "steady" in p.stdout
     assert not re.search(r"^\s+op\b", p.stdout, re.M) and "{" not in p.stdout.split("\n\n")[0], p.stdout
+    p = subprocess.run([sys.executable, "-m", "host.cli", "no-such-command"], cwd=ROOT, capture_output=True,
+                       text=True, timeout=60, env={"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin"})
+    assert p.returncode == 2 and "'steady'" in p.stderr and "'op'" not in p.stderr, p.stderr

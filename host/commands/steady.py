@@ -1,7 +1,7 @@
 """`dcrig steady`: the steady-state operating point of a machine (and the firing angle its bridge needs).
 
-Owns argument checking and the printed table; the solving is host.opoint. `dcrig op` is the
-old name, kept for one release as a hidden alias (not listed in help; it prints a note). Never imports the
+Owns argument checking and the printed table; the solving is host.opoint. `dcrig op`, the
+old name, still reaches this command for one release (host.cli.HIDDEN_ALIASES). Never imports the
 step kernel itself (host.opoint runs it lazily, only for a switched-bridge continuity check).
 """
 
@@ -28,19 +28,12 @@ exit status: 0 found, 1 no operating point exists (the reason is printed), 2 bad
 """
 
 
-OLD_NAME = "op"  # hidden alias for one release; remove in the next
-
-
 def add_subparser(sub):
     _configure(sub.add_parser(
         "steady",
         help="steady-state operating point (motor or generator, self-excited build-up, firing angle)",
         **_parser_text(),
     ))
-    # no help= : argparse lists only sub-parsers that have one, so the old name stays hidden
-    old = sub.add_parser(OLD_NAME, **_parser_text())
-    _configure(old)
-    old.set_defaults(func=_do_old_name)
 
 
 def _parser_text() -> dict:
@@ -136,14 +129,6 @@ def _jsonable(v):
         v = float(v)
         return v if math.isfinite(v) else None
     return str(v)
-
-
-def _do_old_name(args):
-    import sys
-
-    print(f"note: `dcrig {OLD_NAME}` is renamed to `dcrig steady`; the old name goes in the next release",
-          file=sys.stderr)
-    return _do_steady(args)
 
 
 def _do_steady(args):
