@@ -1,4 +1,4 @@
-"""Steady-state operating point of the machine model (the engine of `dcrig op`).
+"""Steady-state operating point of the machine model (the engine of `dcrig steady`).
 
 Owns: the DC steady state of the same circuit equations the step kernel integrates (every
 connection, motoring and generating, self-excited build-up), the power and loss balance, the
@@ -469,7 +469,7 @@ def solve_motor(
     chosen = [k for k, val in given.items() if val is not None]
     if len(chosen) != 1:
         raise ConfigError(
-            "op: a motor point needs --vt and exactly one of --load-torque, --line-current, "
+            "steady: a motor point needs --vt and exactly one of --load-torque, --line-current, "
             f"--armature-current, --speed; got {len(chosen)}"
             + (f" ({', '.join(chosen)})" if chosen else "")
         )
@@ -581,7 +581,7 @@ def solve_generator(
     returned; when there is none, found is False and reason says why.
     """
     if load_ohm is not None and load_current_A is not None:
-        raise ConfigError("op: a generator point takes at most one of --load-ohm, --load-current")
+        raise ConfigError("steady: a generator point takes at most one of --load-ohm, --load-current")
     w = _finite(speed_rpm, "--speed") * RPM
     if load_ohm is not None:
         r_load = _finite(load_ohm, "--load-ohm")
