@@ -160,7 +160,11 @@ def fit_open_circuit(rec: Record, reference_speed_rpm: float | None = None) -> F
         n = np.full_like(i, rec.meta["speed_rpm"])
     else:
         raise ConfigError(f"{src}: speed_rpm: give a speed_rpm column or a '# speed_rpm = VALUE' line, got neither")
-    n_ref = reference_speed_rpm or rec.meta.get("reference_speed_rpm") or float(np.round(np.median(n)))
+    # default reference: the test speed with the most points (the highest on a tie), rounded
+    rounded = np.round(n, -1 if np.median(n) > 200 else 0)
+    vals_, counts_ = np.unique(rounded, return_counts=True)
+    mode = float(vals_[counts_ == counts_.max()].max())
+    n_ref = reference_speed_rpm or rec.meta.get("reference_speed_rpm") or mode
     speeds = sorted(set(np.round(n, 6)))
     e_ref = e * n_ref / n
     order = np.argsort(i, kind="stable")
@@ -205,8 +209,13 @@ def fit_open_circuit(rec: Record, reference_speed_rpm: float | None = None) -> F
             f"{src}: emf_V: the open-circuit curve falls (line {lk[k]}: {ek[k]:.1f} V at {ik[k]:g} A after "
             f"{run_max[k]:.1f} V at a lower field current, normalised to {n_ref:g} r/min); "
             f"a curve must rise with field current, got a drop of {drop[k]:.1f} V")
-    # --- merge equal currents, then pool violators
-    ux, inv = np.unique(ik, return_inverse=True)
+    # --- merge readings at (nearly) the same current, e.g. the same set point at two speeds,
+    # then pool violators
+    gap = 0.01 * float(ik.max())
+    cluster = np.concatenate([[0], np.cumsum(np.diff(ik) > gap)])
+    cluster[ik == 0.0] = -1  # the residual point stays on its own
+    _, inv = np.unique(cluster, return_inverse=True)
+    ux = np.array([ik[inv == j].mean() for j in range(inv.max() + 1)])
     uy = np.array([ek[inv == j].mean() for j in range(len(ux))])
     uw = np.array([(inv == j).sum() for j in range(len(ux))], float)
     blocks = _pava(uy, uw)

@@ -287,3 +287,79 @@ def ra_at(v, temp_C):
 
 
 __all__ = [n for n in dir() if not n.startswith("_")] + ["math"]
+
+
+def _nameplate_row(v):
+    row = {"rated_power_kW": v["machine.rated_power_kW"], "rated_voltage_V": v["machine.rated_voltage_V"],
+           "rated_current_A": v["machine.rated_current_A"], "rated_speed_rpm": v["machine.rated_speed_rpm"]}
+    if v["machine.max_speed_rpm"]:
+        row["max_speed_rpm"] = v["machine.max_speed_rpm"]
+    if v["machine.connection"] != "series":
+        rf_hot = resistance_at(v["machine.field_resistance_ohm"], v["machine.resistance_ref_C"], v["machine.field_temp_C"])
+        i_f = v["machine.rated_field_current_A"]
+        row["field_voltage_V"] = round((rf_hot + v["machine.field_rheostat_ohm"]) * i_f)
+        row["field_current_A"] = i_f
+    return row
+
+
+def separate_machine_records(machine_path, folder, seed=11, noise_pct=0.2, converter_path=None, prefix=""):
+    """The full set of test records for a separately excited machine (the demo and the round
+    trip): nameplate, open-circuit at two speeds, armature V-I, field step, armature step,
+    heat-run readings, no-load losses, run-downs alone and coupled, and (with a current-source
+    converter) an acceleration. Returns {record kind: [paths]} as build() takes them."""
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    rng = np.random.default_rng(seed)
+    v = load("machine", machine_path).values
+    name = prefix or Path(machine_path).stem
+    out: dict[str, list] = {}
+
+    def put(kind, fname, cols, meta=None, notes=()):
+        path = write_record(folder / f"{name}_{fname}.csv", kind, cols, meta,
+                            ("invented demo data: made by running dcrig's model with seeded noise",) + tuple(notes))
+        out.setdefault(kind, []).append(path)
+
+    put("nameplate", "nameplate", {k: [val] for k, val in _nameplate_row(v).items()})
+    n_r = v["machine.rated_speed_rpm"]
+    xs = v["machine.magnetization.field_current_A"]
+    i_top = xs[-1]
+    i_pts = [0.0] + [float(x) for x in np.linspace(i_top / 14, i_top, 14)]
+    put("open-circuit", "open_circuit", open_circuit(machine_path, i_pts, [n_r, 0.8 * n_r], rng, noise_pct),
+        notes=("driven at two speeds; field raised point by point",))
+    t_cold = v["machine.thermal.ambient_C"]
+    i_r = v["machine.rated_current_A"]
+    put("resistance", "armature_vi", resistance_vi(machine_path, [f * i_r for f in (0.1, 0.25, 0.4, 0.55, 0.7, 0.85, 1.0)], t_cold, rng, noise_pct),
+        {"winding_temp_C": t_cold, "brushes": 1}, ("rotor locked, field off",))
+    rf_hot = resistance_at(v["machine.field_resistance_ohm"], v["machine.resistance_ref_C"], v["machine.field_temp_C"])
+    tau_f = (v["machine.field_inductance_H"] + v["machine.field_leakage_H"]) / rf_hot
+    put("field-step", "field_step", field_step(machine_path, rf_hot * v["machine.rated_field_current_A"], 0.1 + 4 * tau_f,
+                                               max(tau_f / 400, 1e-3), rng, noise_pct),
+        {"winding_temp_C": v["machine.field_temp_C"]}, ("armature open, rotor at rest; step to rated field voltage",))
+    ra_c = ra_at(v, t_cold)
+    tau_a = v["machine.la_H"] / ra_c
+    put("armature-step", "armature_step", armature_step(machine_path, 2.0 + 0.3 * i_r * ra_c, 0.01 + 8 * tau_a, tau_a / 200, rng,
+                                                        noise_pct, winding_temp_C=t_cold),
+        {"winding_temp_C": t_cold}, ("rotor locked, field off",))
+    hot = t_cold + v["machine.thermal.rated_rise_K"]
+    r_cold = cold_resistance(machine_path, t_cold, rng, noise_pct / 2)
+    put("temperature", "heat_run", hot_resistance(machine_path, hot, [30.0, 60.0, 90.0, 120.0], rng, noise_pct / 2),
+        {"cold_resistance_ohm": r_cold, "cold_temp_C": t_cold, "coolant_temp_C": t_cold, "test_current_A": i_r},
+        ("readings after a rated-current heat run; two-current method across the winding",))
+    vr = v["machine.rated_voltage_V"]
+    put("losses", "no_load", no_load_losses(machine_path, [0.3 * vr, 0.45 * vr, 0.6 * vr, 0.75 * vr, 0.9 * vr], t_cold, rng, noise_pct),
+        {"armature_circuit_ohm": ra_c, "brush_drop_V": 2.0}, ("steady no-load runs, field at rated",))
+    for coupled, fname in ((False, "run_down_motor"), (True, "run_down_coupled")):
+        j = v["mechanics.inertia_kgm2"] + (v["mechanics.load_inertia_kgm2"] if coupled else 0.0)
+        w = vr / load_plant_kphi(machine_path)
+        t_stop = j * w / max(v["mechanics.coulomb_Nm"] + v["mechanics.viscous_Nm_per_rad_s"] * w, 1e-9)
+        put("run-down", fname, run_down(machine_path, vr, min(1.2 * t_stop, 60.0), max(t_stop / 600, 5e-3), rng, noise_pct, coupled),
+            {"coupled": 1 if coupled else 0}, ("armature opened at rated voltage no-load speed, field held",))
+    if converter_path:
+        t_acc = 0.6 * v["mechanics.inertia_kgm2"] * n_r * RPM / (load_plant_kphi(machine_path) * 0.5 * i_r)
+        put("acceleration", "acceleration", acceleration(machine_path, converter_path, 0.5 * i_r, t_acc, t_acc / 400, rng, noise_pct, t_cold),
+            {"armature_circuit_ohm": ra_c, "brush_drop_V": 2.0, "coupled": 0}, ("half rated current from rest, ideal current source",))
+    return out
+
+
+def load_plant_kphi(machine_path) -> float:
+    return pack(load("machine", machine_path)).derived["flux_constant_Vs"]
