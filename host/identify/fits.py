@@ -176,20 +176,24 @@ def fit_open_circuit(rec: Record, reference_speed_rpm: float | None = None) -> F
     keep = np.ones(len(i), bool)
     flagged = []
     if len(i) >= 6:
-        r = _local_quadratic_residuals(i, e_ref)
-        mad = float(np.median(np.abs(r - np.median(r))))
-        sigma = 1.4826 * mad
-        limit = max(5.0 * sigma, 0.01 * top)
-        # the end points have neighbours on one side only: extrapolation, not a check
-        r[0] = r[-1] = 0.0
-        for k in np.nonzero(np.abs(r) > limit)[0]:
-            keep[k] = False
-            flagged.append({"line": int(lines[k]), "field_current_A": float(i[k]), "emf_V_at_ref": float(e_ref[k]),
+        # one point at a time, worst first: its residual against a quadratic through its
+        # neighbours, compared with the scatter of the others once it is left out (an outlier
+        # spoils its neighbours' residuals, so the scale is taken without it)
+        sigma = 0.0
+        for _ in range(max(1, len(i) // 5)):
+            idx = np.nonzero(keep)[0]
+            r = _local_quadratic_residuals(i[idx], e_ref[idx])
+            r[0] = r[-1] = 0.0  # the end points have neighbours on one side only
+            k = int(np.argmax(np.abs(r)))
+            rest = np.delete(idx, k)
+            r_rest = _local_quadratic_residuals(i[rest], e_ref[rest])[1:-1]
+            sigma = 1.4826 * float(np.median(np.abs(r_rest))) if r_rest.size else 0.0
+            if abs(r[k]) <= max(6.0 * sigma, 0.01 * top):
+                break
+            j = idx[k]
+            keep[j] = False
+            flagged.append({"line": int(lines[j]), "field_current_A": float(i[j]), "emf_V_at_ref": float(e_ref[j]),
                             "off_by_V": float(r[k])})
-        # a flagged point's own error spoils its neighbours' residuals: recheck once without it
-        if flagged:
-            r2 = _local_quadratic_residuals(i[keep], e_ref[keep])
-            sigma = 1.4826 * float(np.median(np.abs(r2 - np.median(r2))))
         fit.quality["noise_V"] = sigma
     else:
         fit.warnings.append(f"{src}: only {len(i)} points: too few to flag outliers (6 or more needed)")

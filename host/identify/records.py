@@ -135,16 +135,13 @@ def read_record(path: str | Path, spec: RecordSpec) -> Record:
         if name in seen:
             raise _fail(src, name, f"column given twice (line {header_line})", header)
         seen.add(name)
-    by_quantity: dict[str, list[str]] = {}
-    for name in header:
-        by_quantity.setdefault(_quantity(name), []).append(name)
     for name in header:
         if name in known:
             continue
-        q = _quantity(name)
-        same_q = [c for c in known if _quantity(c) == q]
+        # same quantity, other unit: the known name's quantity followed by another unit suffix
+        same_q = [c for c in known if name.startswith(_quantity(c) + "_")]
         if same_q:
-            others = [n for n in by_quantity[q] if n != name]
+            others = [n for n in header if n != name and n.startswith(_quantity(same_q[0]) + "_")]
             if others:
                 raise _fail(src, name, f"mixed units: the file also has {others[0]}; give {same_q[0]} only", name)
             raise _fail(src, name, f"unit not accepted: this column is {same_q[0]}", name)
