@@ -195,8 +195,8 @@ def _check_machine(cfg: Config) -> None:
     es = v["machine.magnetization.emf_V"]
     p_x = "machine.magnetization.field_current_A"
     p_e = "machine.magnetization.emf_V"
-    if len(xs) < 4:
-        raise _rule_fail(src, p_x, "needs at least 4 points", list(xs))
+    if len(xs) < 2:
+        raise _rule_fail(src, p_x, "needs at least 2 points", list(xs))
     if len(xs) > 32:
         raise _rule_fail(src, p_x, "allows at most 32 points", len(xs))
     if len(es) != len(xs):
@@ -254,7 +254,9 @@ def _check_machine(cfg: Config) -> None:
             f"voltage ({vr:g} V): curve and ratings disagree, got last point {es[-1]:g}"
         )
     if conn != "series":
-        fr = v["machine.field_resistance_ohm"] * (235.0 + v["machine.field_temp_C"]) / (235.0 + v["machine.resistance_ref_C"])
+        fr = v["machine.field_resistance_ohm"]
+        if not v["machine.resistances_as_measured"]:
+            fr *= (235.0 + v["machine.field_temp_C"]) / (235.0 + v["machine.resistance_ref_C"])
         vf = (fr + v["machine.field_rheostat_ohm"]) * v["machine.rated_field_current_A"]
         if conn != "separate" and vf > 1.2 * vr:
             raise ConfigError(

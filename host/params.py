@@ -93,6 +93,12 @@ def pack(machine: Config, converter: Config | None = None) -> Plant:
     p[L.P_THERMAL_TAU_S] = v["machine.thermal.time_constant_s"]
     p[L.P_THERMAL_RISE_K] = v["machine.thermal.rated_rise_K"]
     p[L.P_THERMAL_FROZEN] = 1.0 if v["machine.thermal.frozen"] else 0.0
+    as_measured = v["machine.resistances_as_measured"]
+    if as_measured:
+        # every winding held at the reference temperature: the copper relation then returns
+        # each resistance unchanged, in the kernel and in every host calculation alike
+        p[L.P_TEMP_FIELD_C] = p[L.P_TEMP_REF_C]
+        p[L.P_THERMAL_FROZEN] = 1.0
     p[L.P_RATED_IA_A] = ir
     p[L.P_RATED_SPEED_RAD_S] = v["machine.rated_speed_rpm"] * RPM
     p[L.P_J_KGM2] = v["mechanics.inertia_kgm2"]
@@ -142,6 +148,8 @@ def pack(machine: Config, converter: Config | None = None) -> Plant:
     x0 = np.zeros(L.N_STATE)
     initial = v["machine.thermal.initial_C"]
     x0[L.X_TEMP_ARM_C] = v["machine.thermal.ambient_C"] if initial is None else initial
+    if as_measured:
+        x0[L.X_TEMP_ARM_C] = p[L.P_TEMP_REF_C]
     x0[L.X_THY_FIRE_AT0 : L.X_THY_FIRE_AT0 + L.N_THY] = -1.0
     x0[L.X_THY_OFF_S0 : L.X_THY_OFF_S0 + L.N_THY] = -1.0  # went off long ago: recovered
     x0[L.X_THY_GATE0 : L.X_THY_GATE0 + L.N_THY] = -1.0  # no gate pulse
@@ -199,6 +207,8 @@ def derive(plant: Plant) -> dict:
     vr = v["machine.rated_voltage_V"]
     wr = p[L.P_RATED_SPEED_RAD_S]
     t_hot = v["machine.thermal.ambient_C"] + v["machine.thermal.rated_rise_K"]
+    if v["machine.resistances_as_measured"]:
+        t_hot = p[L.P_TEMP_REF_C]
     ra_hot = _copper(p[L.P_RA_OHM], t_hot, p[L.P_TEMP_REF_C])
     rse = _copper(p[L.P_RSE_OHM], p[L.P_TEMP_FIELD_C], p[L.P_TEMP_REF_C])
     rf = _copper(p[L.P_RF_OHM], p[L.P_TEMP_FIELD_C], p[L.P_TEMP_REF_C]) + p[L.P_RHEO_OHM]

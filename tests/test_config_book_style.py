@@ -1,0 +1,75 @@
+"""A machine written the way a book problem or a test sheet gives it: resistances as measured
+(no temperature correction) and a magnetization curve of two points (a straight line).
+
+Hand numbers by the steady equivalent circuit of a shunt motor (any machines textbook, e.g.
+Chapman, *Electric Machinery Fundamentals*): If = Vt / Rf, E = Vt - Ia Ra (no brush drop
+given), K phi = E_curve(If) / w_curve, w = E / K phi, T = K phi Ia. The machine data are
+invented in the style of such a problem, not taken from a book.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from host.config import resolve
+from host.params import pack
+
+BOOK = {
+    "machine": {
+        "name": "book-style shunt motor", "connection": "shunt",
+        "rated_power_kW": 10.0, "rated_voltage_V": 250.0, "rated_current_A": 45.0, "rated_speed_rpm": 1150.0,
+        "rated_field_current_A": 1.0, "ra_ohm": 0.25, "field_resistance_ohm": 250.0, "brush_drop_V": 0.0,
+        "resistances_as_measured": True,
+        # the steady answer does not depend on these two (checked below by changing them)
+        "la_H": 0.01, "field_inductance_H": 50.0,
+        "magnetization": {"speed_rpm": 1200.0, "field_current_A": [0.0, 1.2], "emf_V": [0.0, 300.0]},
+    },
+    "mechanics": {"inertia_kgm2": 0.5, "load": "constant"},
+}
+
+
+def _steady(table, load_Nm, t_s=4.0):
+    from rtmodel import layout as L
+    from rtmodel.kernel import step_frame
+
+    plant = pack(resolve("machine", table, "book"))
+    x, u, y = plant.new_state(), plant.new_inputs(), np.zeros(L.N_OUTPUT)
+    x[L.X_I_FIELD_A] = 1.0
+    x[L.X_SPEED_RAD_S] = 1150 * math.pi / 30
+    u[L.U_LOAD_TORQUE_NM] = load_Nm
+    step_frame(x, plant.p, u, y, int(round(t_s / plant.dt_s)))
+    return plant, y
+
+
+def test_book_style_shunt_motor_by_hand(kernel):
+    from rtmodel import layout as L
+
+    # If = 250/250 = 1 A; the straight curve gives 300 x 1/1.2 = 250 V at 1200 r/min:
+    # K phi = 250 / (1200 pi/30) = 1.98944 V s/rad. At Ia = 40 A: E = 250 - 40 x 0.25 = 240 V,
+    # n = 240 / 250 x 1200 = 1152 r/min, T = 1.98944 x 40 = 79.577 N m.
+    kphi = 250.0 / (1200 * math.pi / 30)
+    plant, y = _steady(BOOK, kphi * 40.0)
+    assert plant.derived["ra_hot_ohm"] == 0.25  # as measured: no correction to a hot temperature
+    assert y[L.Y_IF_A] == pytest.approx(1.0, rel=1e-6)
+    assert y[L.Y_IA_A] == pytest.approx(40.0, rel=1e-4)
+    assert y[L.Y_SPEED_RPM] == pytest.approx(1152.0, rel=1e-4)
+    # the answer does not depend on the inductances and inertia the transient model needs
+    other = {"machine": dict(BOOK["machine"], la_H=0.03, field_inductance_H=20.0), "mechanics": {"inertia_kgm2": 2.0, "load": "constant"}}
+    _, y2 = _steady(other, kphi * 40.0, t_s=8.0)
+    assert y2[L.Y_SPEED_RPM] == pytest.approx(1152.0, rel=1e-4)
+
+
+def test_without_the_switch_resistances_are_corrected():
+    from host.errors import ConfigError
+
+    table = {"machine": dict(BOOK["machine"], resistances_as_measured=False), "mechanics": BOOK["mechanics"]}
+    # IEC 60034-1 (235, from memory): the 250 ohm field read at 20 degC is 250 x 310/255 = 304 ohm
+    # at 75 degC, too much to carry 1 A from 250 V: the loader says so
+    with pytest.raises(ConfigError, match="field circuit with rheostat needs 304 V"):
+        resolve("machine", table, "book")
+    table["machine"]["field_resistance_ohm"] = 200.0
+    plant = pack(resolve("machine", table, "book"))
+    assert plant.derived["field_circuit_ohm"] == pytest.approx(200 * 310 / 255)
