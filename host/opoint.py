@@ -698,12 +698,11 @@ def solve_generator(
 
 
 def _critical_field_ohm(plant, c, w):
-    """Largest slope of the curve at speed w: a field circuit above it cannot build up."""
-    p = plant.p
-    n = int(p[L.P_MAG_N])
-    ii = np.linspace(0.0, p[L.P_MAG_I0 + n - 1], 2001)
-    de = max(float(curve_emf_py(p, x)[1]) for x in ii)
-    return de * abs(w) / c.wc
+    """The critical field resistance at speed w, as `dcrig check` reports it
+    (host.params.critical_field_ohm: the tangent from the origin to the curve, residual off)."""
+    from .params import critical_field_ohm
+
+    return critical_field_ohm(plant.p, w)
 
 
 # ---------------------------------------------------------------------------------------------

@@ -198,6 +198,43 @@ def emf_at(p: np.ndarray, i_excitation_A: float, speed_rad_s: float) -> float:
     return e * speed_rad_s / p[L.P_MAG_SPEED_RAD_S]
 
 
+def critical_field_ohm(p: np.ndarray, speed_rad_s: float) -> float:
+    """Critical field resistance at speed w: the one definition dcrig uses (check and op).
+
+    The slope of the tangent drawn from the origin to the open-circuit curve with its
+    residual EMF taken off (the tangent construction of the machines textbooks):
+
+        R_c = max over i > 0 of (E(i) - E_res) / i, scaled by w / w_c.
+
+    On a curve that is straight at its foot this is the air-gap slope; where the foot bends
+    upwards first (an S-shaped start) the tangent touches the curve above the foot.
+    """
+    n = int(p[L.P_MAG_N])
+    e_res = float(p[L.P_MAG_E0])
+    i_max = float(p[L.P_MAG_I0 + n - 1])
+
+    def ratio(i):
+        return (curve_emf_py(p, i)[0] - e_res) / i
+
+    grid = np.linspace(0.0, i_max, 2001)[1:]
+    vals = np.array([ratio(x) for x in grid])
+    k = int(np.argmax(vals))
+    lo = grid[max(k - 1, 0)] if k > 0 else grid[0] * 1e-6
+    hi = grid[min(k + 1, len(grid) - 1)]
+    # golden-section refinement of the maximum between the grid neighbours
+    g = (math.sqrt(5.0) - 1.0) / 2.0
+    a, b = lo, hi
+    for _ in range(80):
+        c1 = b - g * (b - a)
+        c2 = a + g * (b - a)
+        if ratio(c1) >= ratio(c2):
+            b = c2
+        else:
+            a = c1
+    best = max(ratio(0.5 * (a + b)), float(vals[k]))
+    return best * abs(speed_rad_s) / float(p[L.P_MAG_SPEED_RAD_S])
+
+
 def derive(plant: Plant) -> dict:
     """Rated EMF, flux constant, time constants, critical field resistance, step limits."""
     p = plant.p
@@ -237,8 +274,8 @@ def derive(plant: Plant) -> dict:
         taus["field_unsaturated_s"] = (p[L.P_LM0_H] + p[L.P_LF_LEAK_H]) / rf
         taus["field_at_rated_s"] = lf_rated / rf
         d["emf_curve_at_rated_field_V"] = emf_at(p, i_f, wr)
-        # critical field resistance: slope of the curve's straight part at this speed
-        d["critical_field_ohm_at_rated_speed"] = slope0 * wr / p[L.P_MAG_SPEED_RAD_S]
+        # critical field resistance: the tangent from the origin (one definition, shared with op)
+        d["critical_field_ohm_at_rated_speed"] = critical_field_ohm(p, wr)
         d["field_voltage_rated_V"] = rf * i_f
     # no-load speed at rated voltage (motor, flux at rated field current or at rated current)
     if conn == L.CONN_SERIES:
