@@ -73,3 +73,62 @@ def test_without_the_switch_resistances_are_corrected():
     table["machine"]["field_resistance_ohm"] = 200.0
     plant = pack(resolve("machine", table, "book"))
     assert plant.derived["field_circuit_ohm"] == pytest.approx(200 * 310 / 255)
+
+
+def test_curve_in_ampere_turns_is_the_same_machine():
+    # 1.2 A on a 1000-turn-per-pole field is 1200 ampere-turns: the packed curve is identical
+    m = dict(BOOK["machine"], field_turns_per_pole=1000.0,
+             magnetization={"speed_rpm": 1200.0, "ampere_turns": [0.0, 1200.0], "emf_V": [0.0, 300.0]})
+    a = pack(resolve("machine", {"machine": m, "mechanics": BOOK["mechanics"]}, "at"))
+    b = pack(resolve("machine", BOOK, "amps"))
+    assert np.array_equal(a.p, b.p)
+
+
+def test_ampere_turns_rules():
+    from host.errors import ConfigError
+
+    m = dict(BOOK["machine"], magnetization={"speed_rpm": 1200.0, "ampere_turns": [0.0, 1200.0], "emf_V": [0.0, 300.0]})
+    with pytest.raises(ConfigError, match=r"^book: machine.field_turns_per_pole: required with machine.magnetization.ampere_turns"):
+        resolve("machine", {"machine": m, "mechanics": BOOK["mechanics"]}, "book")
+    m = dict(m, field_turns_per_pole=1000.0, magnetization=dict(m["magnetization"], field_current_A=[0.0, 1.2]))
+    with pytest.raises(ConfigError, match="not both"):
+        resolve("machine", {"machine": m, "mechanics": BOOK["mechanics"]}, "book")
+
+
+def test_constant_flux_machine_by_hand(kernel):
+    """K phi given instead of a curve (separately excited, field held at rated): at 440 V and
+    a 1000 A armature current, E = 440 - 1000 x 0.02 = 420 V (no brush drop given), so the
+    speed is E / K phi = 420 / 8 = 52.5 rad/s = 501.3 r/min (the constant-flux motor equation,
+    any machines textbook)."""
+    import math
+
+    from rtmodel import layout as L
+    from rtmodel.kernel import step_frame
+
+    table = {
+        "machine": {"name": "constant-flux motor", "connection": "separate", "rated_voltage_V": 440.0,
+                    "rated_current_A": 1040.0, "rated_speed_rpm": 500.0, "rated_field_current_A": 18.0,
+                    "ra_ohm": 0.02, "la_H": 0.0008, "brush_drop_V": 0.0, "field_resistance_ohm": 12.0,
+                    "field_inductance_H": 30.0, "resistances_as_measured": True, "flux_constant_Vs": 8.0},
+        "mechanics": {"inertia_kgm2": 100.0, "load": "constant"},
+    }
+    cfg = resolve("machine", table, "kphi")
+    assert any("rated_power_kW not given" in w for w in cfg.warnings)  # the skipped cross-check is said
+    plant = pack(cfg)
+    assert plant.derived["flux_constant_Vs"] == pytest.approx((440 - 1040 * 0.02) / (500 * math.pi / 30))
+    x, u, y = plant.new_state(), plant.new_inputs(), np.zeros(L.N_OUTPUT)
+    x[L.X_I_FIELD_A] = 18.0
+    x[L.X_SPEED_RAD_S] = 52.5
+    u[L.U_LOAD_TORQUE_NM] = 8.0 * 1000.0
+    step_frame(x, plant.p, u, y, int(round(3.0 / plant.dt_s)))
+    assert y[L.Y_FLUX_VS] == pytest.approx(8.0, rel=1e-9)
+    assert y[L.Y_IA_A] == pytest.approx(1000.0, rel=1e-4)
+    assert y[L.Y_SPEED_RAD_S] == pytest.approx(52.5, rel=1e-4)
+
+
+def test_constant_flux_rules():
+    from host.errors import ConfigError
+
+    m = dict(BOOK["machine"], flux_constant_Vs=2.0)
+    with pytest.raises(ConfigError, match="either a flux constant or a magnetization curve"):
+        resolve("machine", {"machine": m, "mechanics": BOOK["mechanics"]}, "book")
