@@ -86,6 +86,7 @@ def pack(machine: Config, converter: Config | None = None) -> Plant:
         np.array(v["machine.magnetization.emf_V"]),
         v["machine.armature_reaction.armature_current_A"],
         v["machine.armature_reaction.field_equivalent_A"],
+        linear=v["machine.magnetization.interpolation"] == "piecewise_linear",
     )
     p[L.P_TEMP_REF_C] = v["machine.resistance_ref_C"]
     p[L.P_TEMP_AMBIENT_C] = v["machine.thermal.ambient_C"]

@@ -80,6 +80,8 @@ MACHINE_KEYS = (
         "Open-circuit curve abscissa: field current in the curve winding, A; starts at 0, strictly increasing, at least 2 points (two points: a straight line, as a book problem gives it)."),
     Key("machine.magnetization", "emf_V", "floats", (), "curve_y",
         "Open-circuit curve ordinate: EMF at speed_rpm, V; first value is the residual EMF (>= 0), strictly increasing."),
+    Key("machine.magnetization", "interpolation", "str", "monotone_cubic", "choice:monotone_cubic|piecewise_linear",
+        "Between the curve points: a smooth monotone cubic (never overshoots), or straight lines as a hand calculation reads a curve (the slope, and with it the field inductance, then jumps at each point)."),
     Key("machine.armature_reaction", "armature_current_A", "floats", (), "reaction_x",
         "Optional: armature currents at which the demagnetizing effect was found, A; strictly increasing, positive."),
     Key("machine.armature_reaction", "field_equivalent_A", "floats", (), "reaction_y",

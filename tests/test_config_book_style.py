@@ -132,3 +132,35 @@ def test_constant_flux_rules():
     m = dict(BOOK["machine"], flux_constant_Vs=2.0)
     with pytest.raises(ConfigError, match="either a flux constant or a magnetization curve"):
         resolve("machine", {"machine": m, "mechanics": BOOK["mechanics"]}, "book")
+
+
+def test_piecewise_linear_curve_reads_like_a_hand_calculation(kernel):
+    """machine.magnetization.interpolation = piecewise_linear: the model's open-circuit EMF
+    between points is the straight-line reading, here against numpy.interp; the default
+    monotone cubic differs from it between points."""
+    from rtmodel import layout as L
+    from rtmodel.kernel import step_frame
+
+    xs = [0.0, 0.5, 1.0, 1.5, 2.0]
+    es = [5.0, 120.0, 210.0, 250.0, 270.0]
+    base = {"machine": dict(BOOK["machine"], connection="separate", rated_field_current_A=1.5,
+                            magnetization={"speed_rpm": 1200.0, "field_current_A": xs, "emf_V": es,
+                                           "interpolation": "piecewise_linear"}),
+            "mechanics": {"inertia_kgm2": 0.5, "load": "prime_mover", "prime_mover_speed_rpm": 900.0}}
+
+    def emf_at(table, i_f):
+        plant = pack(resolve("machine", table, "book"))
+        x, u, y = plant.new_state(), plant.new_inputs(), np.zeros(L.N_OUTPUT)
+        u[L.U_CONTACTOR] = 0.0
+        x[L.X_I_FIELD_A] = i_f
+        u[L.U_FIELD_V] = i_f * 250.0
+        x[L.X_SPEED_RAD_S] = 900 * np.pi / 30
+        step_frame(x, plant.p, u, y, 10)
+        return float(y[L.Y_EMF_V])
+
+    for i_f in (0.3, 0.75, 1.2, 1.8, 2.4):
+        assert emf_at(base, i_f) == pytest.approx(np.interp(i_f, xs, es) * 900 / 1200 if i_f <= 2.0
+                                                 else (270 + 40 * (i_f - 2.0)) * 900 / 1200, rel=1e-6)
+    cubic = {"machine": dict(base["machine"], magnetization=dict(base["machine"]["magnetization"], interpolation="monotone_cubic")),
+             "mechanics": base["mechanics"]}
+    assert abs(emf_at(cubic, 0.75) - emf_at(base, 0.75)) > 1.0
