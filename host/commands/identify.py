@@ -344,7 +344,7 @@ def _do_build(args):
     print("  origins: " + ", ".join(f"{k} {v}" for k, v in sorted(counts.items())) + f"; sidecar {side}")
     for f in built.fits:
         q = ", ".join(f"{k} {v:.3g}" if isinstance(v, float) else f"{k} {v}" for k, v in f.quality.items()
-                      if k.startswith(("rms", "spread", "points_used", "points_flagged")))
+                      if k.startswith(("rms", "scatter", "spread", "points_used", "points_flagged")))
         print(f"  fitted {f.kind:<14} {Path(f.source).name}  ({q})")
     for k, v in checks.items():
         print(f"  {k.replace('_', ' ')}: {v:.6g}")

@@ -81,7 +81,7 @@ def _fmt_value(v) -> str:
 
 
 def _quality(fit) -> dict:
-    keep = ("rms_residual_V", "rms_residual_pct", "rms_residual_rpm", "rms_residual_A", "rms_residual_W",
+    keep = ("rms_residual_V", "scatter_V", "rms_residual_pct", "rms_residual_rpm", "rms_residual_A", "rms_residual_W",
             "rms_residual_Nm", "spread_pct", "points_used", "points_flagged", "resistance_std_error_pct",
             "inductance_rms_residual_pct")
     return {k: fit.quality[k] for k in keep if k in fit.quality}

@@ -255,6 +255,11 @@ def fit_open_circuit(rec: Record, reference_speed_rpm: float | None = None) -> F
     res = ek - ev
     fit.quality["rms_residual_V"] = float(np.sqrt(np.mean(res**2)))
     fit.quality["max_residual_V"] = float(np.max(np.abs(res)))
+    # scatter: each kept reading against a quadratic through its neighbours (itself left out);
+    # unlike the residual above it is not zero when the table keeps every reading
+    if len(ik) >= 6:
+        loo = _local_quadratic_residuals(ik, ek)[1:-1]
+        fit.quality["scatter_V"] = float(np.sqrt(np.mean(loo**2)))
     fit.quality["points_used"] = int(keep.sum())
     fit.quality["points_flagged"] = len(flagged)
     fit.quality["speeds_rpm"] = ", ".join(f"{s:g}" for s in speeds)
