@@ -11,8 +11,10 @@ import math
 
 from ..errors import ConfigError
 
-CAUTION = (
-    "CAUTION: a hand check is no substitute for the measurement it stands for. Resistance and temperature\n"
+from ..cli import SAFETY
+
+CAUTION = SAFETY + "\n" + (
+    "A hand check is no substitute for the measurement it stands for. Resistance and temperature\n"
     "readings are taken on de-energised, locked-out windings under local electrical codes and licensed practice;\n"
     "a field winding broken under current raises a dangerous voltage."
 )

@@ -14,8 +14,10 @@ from pathlib import Path
 
 from ..errors import ConfigError
 
-SAFETY_NOTE = (
-    "CAUTION: test records come from energised machines. Stage open-circuit, locked-rotor, heat and run-down tests\n"
+from ..cli import SAFETY
+
+SAFETY_NOTE = SAFETY + "\n" + (
+    "Test records come from energised machines. Stage open-circuit, locked-rotor, heat and run-down tests\n"
     "only under your site's lock-out rules, local electrical codes and licensed practice, with a qualified person:\n"
     "a field winding breaks with a dangerous voltage, a locked rotor overheats within seconds, a motor that loses\n"
     "its field overspeeds. A model built from estimates shows a plausible machine, not this one."
