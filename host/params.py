@@ -264,7 +264,7 @@ def derive(plant: Plant) -> dict:
     j = p[L.P_J_KGM2] + p[L.P_J_LOAD_KGM2]
     la = p[L.P_LA_H]
     taus = {}
-    taus["armature_s"] = la / r_arm
+    taus["armature_s"] = la / r_arm if r_arm > 0 else math.inf  # Ra = 0: no decay, no step limit from it
     if kphi_rated > 0:
         taus["mechanical_s"] = j * r_arm / kphi_rated**2
     slope0 = p[L.P_MAG_SLOPE0]

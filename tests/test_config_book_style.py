@@ -164,3 +164,34 @@ def test_piecewise_linear_curve_reads_like_a_hand_calculation(kernel):
     cubic = {"machine": dict(base["machine"], magnetization=dict(base["machine"]["magnetization"], interpolation="monotone_cubic")),
              "mechanics": base["mechanics"]}
     assert abs(emf_at(cubic, 0.75) - emf_at(base, 0.75)) > 1.0
+
+
+def test_armature_resistance_neglected(kernel):
+    """ra_ohm = 0 as a book problem neglects it (brush drop 0 too): the separately excited
+    motor's speed is V / K phi at any load (E = Vt), here with K phi = 8 V s/rad at 440 V:
+    55 rad/s at no load and at 1000 A (the constant-flux motor equation)."""
+    from rtmodel import layout as L
+    from rtmodel.kernel import step_frame
+
+    table = {
+        "machine": {"name": "no-Ra motor", "connection": "separate", "rated_voltage_V": 440.0,
+                    "rated_current_A": 1040.0, "rated_speed_rpm": 500.0, "rated_field_current_A": 18.0,
+                    "ra_ohm": 0.0, "la_H": 0.0008, "brush_drop_V": 0.0, "field_resistance_ohm": 12.0,
+                    "field_inductance_H": 30.0, "resistances_as_measured": True, "flux_constant_Vs": 8.0},
+        "mechanics": {"inertia_kgm2": 100.0, "viscous_Nm_per_rad_s": 50.0, "load": "constant"},
+    }
+    plant = pack(resolve("machine", table, "no-ra"))
+    assert math.isinf(plant.derived["time_constants_s"]["armature_s"])
+    for load in (0.0, 8000.0):
+        x, u, y = plant.new_state(), plant.new_inputs(), np.zeros(L.N_OUTPUT)
+        x[L.X_I_FIELD_A] = 18.0
+        x[L.X_SPEED_RAD_S] = 55.0
+        # viscous friction damps the L-J oscillation (no resistance damps it electrically)
+        u[L.U_LOAD_TORQUE_NM] = load
+        step_frame(x, plant.p, u, y, int(round(60.0 / plant.dt_s)))  # 15 decay times 2J/b
+        assert y[L.Y_SPEED_RAD_S] == pytest.approx(55.0, rel=1e-4)
+        assert y[L.Y_IA_A] == pytest.approx((load + 50.0 * 55.0) / 8.0, rel=1e-3)
+    from host.opoint import solve_motor
+
+    op = solve_motor(plant, 440.0, load_torque_Nm=8000.0)
+    assert op.state.w == pytest.approx(55.0, rel=1e-9)
