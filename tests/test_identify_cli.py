@@ -166,6 +166,17 @@ def test_build_from_demo_records_passes_check(capsys, tmp_path, kernel):
     assert len(list((tmp_path / "png").glob("*.png"))) >= 8
     side = json.loads(out_toml.with_suffix(".identify.json").read_text())
     assert side["values"]["machine.ra_ohm"]["origin"] == "record"
+    # Done when (issue 11): the shipped demo records reproduce the original machine's no-load
+    # and rated-load speed within 1 % (equivalent circuit, host.opoint, on both configs)
+    from host.config import load
+    from host.opoint import solve_motor
+    from host.params import pack
+
+    orig = pack(load("machine", ROOT / "configs" / "machines" / "kestrel_f3_stand.toml"))
+    n_nl = solve_motor(orig, 440.0, load_torque_Nm=0.0).state.w * 30 / 3.141592653589793
+    n_rl = solve_motor(orig, 440.0, armature_current_A=1040.0).state.w * 30 / 3.141592653589793
+    assert side["checks"]["no_load_speed_rpm"] == pytest.approx(n_nl, rel=0.01)
+    assert side["checks"]["rated_load_speed_rpm"] == pytest.approx(n_rl, rel=0.01)
     assert "# record:" in out_toml.read_text()
     rc, out, err = run(capsys, "check", str(out_toml))
     assert rc == 0, err
