@@ -27,7 +27,8 @@ inputs (NAME for --change/--ramp/--set-input): see `host/sim.py` INPUTS; units a
 
 def add_subparser(sub):
     p = sub.add_parser("sim", help="offline transient simulation to CSV (and PNG)",
-                       description="Run the compiled model offline from standstill with input changes and ramps; "
+                       description="Run the compiled model offline from standstill (or, with --from-steady, running "
+                       "in steady state) with input changes and ramps; "
                        "write a CSV with unit-suffixed columns and optionally a plot.",
                        epilog=EXAMPLE + "\n" + SAFETY, formatter_class=argparse.RawDescriptionHelpFormatter)
     add_config_args(p)
@@ -40,6 +41,9 @@ def add_subparser(sub):
     # the old spelling, hidden from --help for its last release; kept apart to name it in errors
     p.add_argument("--step", dest="old_step", action="append", default=[], help=argparse.SUPPRESS)
     p.add_argument("--ramp", action="append", default=[], metavar="NAME@T0:T1=V0:V1", help="ramp an input linearly")
+    p.add_argument("--from-steady", action="store_true",
+                   help="start running in steady state (field up, at the speed where the motor meets its load on the DC "
+                   "source) instead of from rest")
     p.add_argument("--out", required=True, metavar="FILE.csv", help="CSV output")
     p.add_argument("--plot", metavar="FILE.png", help="PNG plot")
     p.set_defaults(func=_do_sim)
@@ -80,7 +84,12 @@ def _do_sim(args):
     n = args.t_end / sample
     if n > 5e6:
         raise ConfigError(f"--sample: {n:.0f} rows is too many; use a larger --sample")
-    t, Y = run_offline(plant, args.t_end, sample, segs)
+    x0 = None
+    if args.from_steady:
+        from ..sim import steady_start_state
+
+        x0 = steady_start_state(plant)
+    t, Y = run_offline(plant, args.t_end, sample, segs, x=x0)
     write_csv(args.out, Y)
     if args.plot:
         plot(args.plot, Y, plant.machine["machine.name"])
