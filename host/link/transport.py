@@ -475,6 +475,12 @@ def open_link(url: str, *, baud: int = DEFAULT_BAUD, parity: str = "N", write_ti
     if scheme and scheme not in PYSERIAL_SCHEMES:
         known = ", ".join(f"{s}://" for s in (*OUR_SCHEMES, *PYSERIAL_SCHEMES))
         raise LinkError(f"link '{url}': scheme {scheme!r}: unknown (known: {known}, or a port path)")
+    if scheme in ("socket", "rfc2217"):
+        # pyserial compares the port with a number and fails with a TypeError when there is none
+        _split_host_port(url, url.split("://", 1)[1].split("/", 1)[0].split("?", 1)[0], "")
+        host_part = urlsplit(url).hostname
+        if not host_part:
+            raise LinkError(f"link '{url}': address: must name a host and a port, e.g. {scheme}://127.0.0.1:5020")
     baud = _check_baud(url, baud)
     parity_code = _check_parity(url, parity)
     if not scheme and os.name == "posix" and not os.path.exists(url):
