@@ -71,7 +71,7 @@ def _do_demo(args):
             start_new_session=True,
         )
         try:
-            loop = run_closed_loop(plant, cable.host_link(), encoding=args.encoding, paced=args.paced,
+            loop = run_closed_loop(plant, cable.host_link(hold_far_end=True), encoding=args.encoding, paced=args.paced,
                                    timeline=timeline, out_dir=args.out, plot=not args.no_plot)
         finally:
             try:

@@ -38,6 +38,9 @@ def add_subparser(sub):
                    "(pty://: to send its HELLO); default 60 s")
     p.add_argument("--handshake-timeout", type=float, default=20.0, metavar="S",
                    help="wait this long for the controller's HELLO once connected; default 20 s")
+    p.add_argument("--peer-timeout", type=float, default=5.0, metavar="S",
+                   help="lockstep: end the run when no valid command came for this long (dead or "
+                   "disconnected controller); default 5 s")
     p.set_defaults(func=_do_serve)
 
 WATCHDOG_MAX_PERIODS = 10000
@@ -58,6 +61,7 @@ def _do_serve(args):
     check_load_pu(args.load)
     check_seconds("--connect-timeout", args.connect_timeout)
     check_seconds("--handshake-timeout", args.handshake_timeout)
+    check_seconds("--peer-timeout", args.peer_timeout)
     check_output_dir("--out", args.out)
     plant = load_plant(args)
     timeline = default_timeline(plant, args.load)
@@ -81,5 +85,5 @@ def _do_serve(args):
                 raise LinkTimeout(f"link '{link.url}': no controller connected within {args.connect_timeout:g} s")
         run_closed_loop(plant, link, encoding=args.encoding, paced=not args.lockstep, timeline=timeline,
                         out_dir=args.out, watchdog_periods=args.watchdog, on_link_loss=args.on_link_loss,
-                        handshake_timeout_s=handshake_s)
+                        handshake_timeout_s=handshake_s, peer_timeout_s=args.peer_timeout)
     return 0

@@ -228,6 +228,17 @@ class FdLink(Link):
     def fileno(self) -> int:
         return self.fd
 
+    def release_peer_hold(self) -> None:
+        """Close the far-end handles held only to keep a pty alive until its peer opened it.
+        Called once the peer has answered: from then on the peer's exit (or a killed peer
+        process) closes the last far-end handle, and reads report it instead of waiting."""
+        for fd in self._keep:
+            try:
+                os.close(fd)
+            except OSError:
+                pass
+        self._keep = []
+
     def _read_raw(self, max_bytes: int, timeout_s: float) -> bytes:
         r, _, _ = select.select([self.fd], [], [], timeout_s)
         if not r:
@@ -276,9 +287,16 @@ class VirtualCable:
         self.slave_path = os.ttyname(self._slave)
         self._handed: set[str] = set()
 
-    def host_link(self) -> FdLink:
+    def host_link(self, hold_far_end: bool = False) -> FdLink:
+        """The master end. hold_far_end: the link takes over the cable's own slave handle (the
+        controller then runs in another process); link.release_peer_hold() drops it once the
+        controller has answered, so that its death is seen as the cable closing."""
         self._take("host")
-        return FdLink(self._master, f"pty://{self.slave_path}#host", peer_path=self.slave_path)
+        link = FdLink(self._master, f"pty://{self.slave_path}#host", peer_path=self.slave_path)
+        if hold_far_end:
+            self._take("controller")
+            link._keep.append(self._slave)
+        return link
 
     def controller_link(self) -> FdLink:
         self._take("controller")
