@@ -178,6 +178,7 @@ class HostLoop:
         self._link_err_last: dict = {}
         self._refused_seen = 0
         self._refused_now = False  # a command was refused in this frame (HOST_COMMAND_REFUSED)
+        self.lockstep = False  # set by run_lockstep (HOST_LOCKSTEP in every feedback)
         self.hooks = []  # callables hook(loop) before each frame (scenario timeline, faults)
         self.supply = int(self.p[L.P_SUPPLY_KIND])
         self.field_kind = int(self.p[L.P_FIELD_SUPPLY_KIND])
@@ -186,6 +187,9 @@ class HostLoop:
         self._limits = self._command_limits(plant)
         if session is not None:
             session.command_check = self.command_refusal
+            v = plant.machine.values
+            session.sensors = (int(round(v["sensors.tacho_V_per_1000rpm"] * 1000.0)),  # uV per rpm
+                               4 * int(v["sensors.encoder_ppr"]))
         self._step(self.x, self.p, self.u, self.y, 0)  # outputs of the initial state, compiles if needed
 
     # ------------------------------------------------------------------ command rules
@@ -303,6 +307,8 @@ class HostLoop:
             status |= sig.HOST_OVERSPEED | sig.HOST_MODEL_ALARM
         if self._refused_now:
             status |= sig.HOST_COMMAND_REFUSED
+        if self.lockstep:
+            status |= sig.HOST_LOCKSTEP
         fb.host_status = status
         fb.op_run = self.operator.run
         fb.op_stop = self.operator.stop
@@ -464,6 +470,7 @@ class HostLoop:
         from .errors import LinkTimeout
 
         sess = self.session
+        self.lockstep = True
         timeout = command_timeout_s or max(0.2, self.frame_period_us * 1e-6)
         connects = getattr(sess.link, "connects", None)
         sess.send_feedback(self.make_feedback())

@@ -255,12 +255,13 @@ class HostSession(_Session):
         self.command_check = None
         self.last_command_seq: int | None = None
         self.handshakes = 0
+        self.sensors = (0, 0)  # (tacho uV per rpm, encoder counts per rev) for the HELLO
         self.peer_restarted = False  # a controller HELLO after its commands: it started over
         self.watchdog = Watchdog(frame_period_us, watchdog_periods, clock) if watchdog_periods else None
 
     def handshake(self, timeout_s: float = 5.0, retry_s: float = 0.25) -> fr.Hello:
         """Send HELLO every retry_s until the controller's HELLO arrives; check it agrees."""
-        ours = fr.Hello(fr.ROLE_HOST, self.encoding, self.frame_period_us)
+        ours = fr.Hello(fr.ROLE_HOST, self.encoding, self.frame_period_us, sensors=self.sensors)
         frame = fr.pack_hello(ours, (self.tx_seq - 1) & 0xFFFF)
         link = self.link
         link.send_delimiter()

@@ -163,6 +163,9 @@ typedef struct {
     uint8_t protocol_version, role, encoding, n_signals;
     uint32_t frame_period_us;
     uint16_t max_payload;
+    /* host HELLO only (its sensor block, docs/protocol.md 6.5); 0 = not given */
+    uint32_t tacho_uV_per_rpm;
+    uint32_t encoder_counts_per_rev;
 } dcrig_hello_t;
 
 /* ---- CRC and COBS ----------------------------------------------------------------------- */
