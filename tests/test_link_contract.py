@@ -345,3 +345,28 @@ def test_controller_reconnecting_on_a_listening_link_gets_a_new_handshake(kernel
     assert loop.stats.rehandshakes == 1
     assert any("controller reconnected: new handshake" in e[2] for e in loop.events)
     assert loop.stats.commands > 15 + 20, "the second controller's commands were applied"
+
+
+def test_overspeed_in_the_closed_loop_is_flagged_recorded_and_summarised(kernel):
+    """A shaft above machine.max_speed_rpm (default 1.2 x rated; common practice, no source:
+    the rating plate's maximum speed) sets HOST_OVERSPEED and HOST_MODEL_ALARM in the
+    feedback, logs one event and is counted in the summary."""
+    from host.runner import Timeline, summary_lines
+    from rtmodel import layout as L
+
+    plant = make_plant("kestrel_f3_stand", "kestrel_f3_bridge")
+    period = int(round(plant.derived["frame_period_us"]))
+    loop = HostLoop(plant, None, period)
+    limit = loop.overspeed_rpm
+    assert limit == pytest.approx(plant.machine.values["machine.max_speed_rpm"]
+                                  or 1.2 * plant.machine.values["machine.rated_speed_rpm"])
+    # the shaft spinning freely at 1.5 x the limit (inertia keeps it there over a few frames)
+    loop.x[L.X_SPEED_RAD_S] = 1.5 * limit * 2 * np.pi / 60
+    for _ in range(3):
+        loop._advance(None, loop.clock())
+        fb = loop.make_feedback()
+        assert fb.host_status & sig.HOST_OVERSPEED and fb.host_status & sig.HOST_MODEL_ALARM
+    assert loop.stats.overspeed_frames == 3
+    assert len([e for e in loop.events if e[1] == "model" and "overspeed" in e[2]]) == 1
+    text = "\n".join(summary_lines(loop, Timeline([]), 1.0))
+    assert "overspeed (3 frames above" in text
