@@ -68,6 +68,7 @@ class LoopStats:
     overspeed_frames: int = 0
     rehandshakes: int = 0  # handshakes after the first: controller reconnected or restarted
     watchdog_resets: int = 0
+    run_invalid: str = ""  # why the error-rate supervisor marked the run invalid ("" = valid)
     jitter_ns: np.ndarray | None = None
     granted: dict = field(default_factory=dict)  # what the OS allowed: priority, affinity, gc
 
@@ -136,7 +137,8 @@ class HostLoop:
     """
 
     def __init__(self, plant: Plant, session, frame_period_us: int, watchdog_periods: int = 10,
-                 on_link_loss: str = "block", record_rows: int = 65536, clock=time.perf_counter_ns):
+                 on_link_loss: str = "block", record_rows: int = 65536, clock=time.perf_counter_ns,
+                 max_error_rate: float = 0.01, error_rate_min_frames: int = 100):
         if on_link_loss not in ("block", "hold"):
             raise ConfigError(f"link: on_link_loss: expected one of ['block', 'hold'], got {on_link_loss!r}")
         from rtmodel.kernel import step_frame
@@ -154,6 +156,10 @@ class HostLoop:
         self.u[L.U_BRIDGE_SELECT] = 0.0
         self.y = np.zeros(L.N_OUTPUT)
         self.watchdog_periods = watchdog_periods
+        # the error-rate supervisor: detected link errors per frame above this (after at least
+        # error_rate_min_frames frames) mark the run invalid; the run goes on, the record says so
+        self.max_error_rate = max_error_rate
+        self.error_rate_min_frames = error_rate_min_frames
         self.on_link_loss = on_link_loss
         self.clock = clock
         self.sensors = Sensors(plant)
@@ -443,6 +449,12 @@ class HostLoop:
         self._link_err_seen = total
         if refused != self._refused_seen:
             self._refused_seen = refused
+        frames = max(self.stats.frames, 1)
+        if (not self.stats.run_invalid and self.max_error_rate is not None
+                and self.stats.frames >= self.error_rate_min_frames and total / frames > self.max_error_rate):
+            self.stats.run_invalid = (f"{total} link errors in {frames} frames, above the supervisor's "
+                                      f"{self.max_error_rate:g} per frame")
+            self.event("link", f"run invalid: {self.stats.run_invalid}")
         text = ", ".join(f"{k} +{n}" for k, n in moved.items())
         kind = "command" if all(k.startswith("refused_") for k in moved) else "link"
         extra = f"; last refusal {sess.last_refusal}" if any(k.startswith("refused_") for k in moved) else ""

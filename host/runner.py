@@ -249,6 +249,8 @@ def link_health(loop: HostLoop) -> str:
     text += f"; firing angles at the end stop {st.end_stop_commands}; new handshakes {st.rehandshakes}"
     if st.watchdog_resets:
         text += f"; watchdog resets {st.watchdog_resets}"
+    if st.run_invalid:
+        text += f"; RUN INVALID: {st.run_invalid}"
     return text
 
 
