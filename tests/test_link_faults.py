@@ -121,3 +121,45 @@ def test_a_clean_link_stays_valid(kernel):
     assert not loop.stats.run_invalid
     assert sum(faulty.injected.values()) == 0
     assert sum(loop.link_error_counts().values()) == 0
+
+
+def test_fault_proxy_between_controller_and_host(kernel):
+    """The proxy form: host <-> cable A <-> FaultProxy <-> cable B <-> controller."""
+    from host.controller.process import run_controller
+    from host.link.faults import FaultProxy
+
+    motor = MOTORS["pinch_roll"]
+    plant = make_plant(motor.machine, motor.converter)
+    a, b = VirtualCable(), VirtualCable()
+    host_link, proxy_host_end = a.host_link(), a.controller_link()
+    proxy_ctl_end, ctl_link = b.host_link(), b.controller_link()
+    faulty = FaultyLink(proxy_host_end, ("corrupt", "repeat", "loss"), rate=0.1, seed=3)
+    proxy = FaultProxy(proxy_host_end, proxy_ctl_end, faulty)
+    stop = threading.Event()
+    pump = threading.Thread(target=lambda: [proxy.pump(0.005) for _ in iter(stop.is_set, True)], daemon=True)
+    period = int(round(plant.derived["frame_period_us"]))
+    session = HostSession(host_link, encoding="fixed", frame_period_us=period)
+    loop = HostLoop(plant, session, period, watchdog_periods=50)
+    res = {}
+    th = threading.Thread(target=lambda: res.update(s=run_controller(ctl_link, motor.settings_path,
+                                                                      handshake_timeout_s=30.0, idle_timeout_s=30.0)),
+                          daemon=True)
+    pump.start()
+    th.start()
+    try:
+        session.handshake(timeout_s=30.0)
+        loop.run_lockstep(120, on_frame=lambda lp: setattr(faulty, "rate", 0.0) if lp.stats.frames > 100 else None,
+                          command_timeout_s=0.05)
+        session.send_control(sig.CTRL_BYE)
+        th.join(timeout=30.0)
+    finally:
+        stop.set()
+        pump.join(timeout=10.0)
+        for ln in (host_link, proxy_host_end, proxy_ctl_end, ctl_link):
+            ln.close()
+    assert "s" in res and res["s"]["reason"] == "bye", res
+    counts = loop.link_error_counts()
+    counts["seq_lost"] = session.rx.lost
+    for cls, n in faulty.injected.items():
+        assert sum(counts[k] for k in DETECTED_BY[cls]) >= n, (cls, n, counts)
+    assert sum(faulty.injected.values()) > 0 and loop.stats.commands > 80
