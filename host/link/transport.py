@@ -503,10 +503,15 @@ def open_link(url: str, *, baud: int = DEFAULT_BAUD, parity: str = "N", write_ti
     parity_code = _check_parity(url, parity)
     if not scheme and os.name == "posix" and not os.path.exists(url):
         raise LinkError(f"link '{url}': port: no such device")
+    extra = {}
+    if not scheme and os.name == "posix":
+        # exclusive open (an advisory lock on the port): a second host on the same port fails
+        # at once with one line instead of both reading half of the frames
+        extra["exclusive"] = True
     try:
         ser = serial.serial_for_url(
             url, baudrate=baud, parity=parity_code, bytesize=serial.EIGHTBITS,
-            stopbits=serial.STOPBITS_ONE, timeout=0, write_timeout=write_timeout_s,
+            stopbits=serial.STOPBITS_ONE, timeout=0, write_timeout=write_timeout_s, **extra,
         )  # fmt: skip
     except (serial.SerialException, ValueError, OSError) as err:
         raise LinkError(f"link '{url}': cannot open: {str(err).splitlines()[0] if str(err) else err!r}") from err
