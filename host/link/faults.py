@@ -39,6 +39,32 @@ DETECTED_BY = {
 }
 
 
+def undetected(injected: dict[str, int], counts: dict[str, int]) -> dict[str, int]:
+    """Classes whose injected faults outnumber the receiver counters that detect them.
+
+    Classes that share counters (corruption, truncation and garbage all end as CRC/COBS/runt
+    errors; repetition, reorder, delay and insertion as sequence repeats or out-of-order) are
+    checked as a group: the group's counters must add up to its injected total. counts must
+    hold "seq_lost" (SeqTracker.lost) for the loss class. {} when everything was detected."""
+    groups: list[tuple[set, set]] = []
+    for cls, n in injected.items():
+        keys = set(DETECTED_BY[cls])
+        for g in groups:
+            if g[1] & keys:
+                g[0].add(cls)
+                g[1].update(keys)
+                break
+        else:
+            groups.append(({cls}, keys))
+    short = {}
+    for classes, keys in groups:
+        need = sum(injected[c] for c in classes)
+        have = sum(counts.get(k, 0) for k in keys)
+        if have < need:
+            short["+".join(sorted(classes))] = need - have
+    return short
+
+
 class FaultyLink(Link):
     """Wraps an open Link; frames sent through it meet the configured faults. Receiving and
     closing go to the inner link unchanged."""
@@ -76,16 +102,20 @@ class FaultyLink(Link):
         self.inner._write_raw(data)
 
     def send_frame(self, frame: bytes) -> None:
-        # frames held back for reorder/delay go out once their wait is over, after this one
-        for k, (wait, data) in enumerate(self._held):
-            self._held[k] = (wait - 1, data)
-        due = [d for w, d in self._held if w <= 0]
-        self._held = [(w, d) for w, d in self._held if w > 0]
         periodic = frame[0] & 0x07 in (2, 3)  # COMMAND, FEEDBACK: the sequenced stream
+        # frames held back for reorder/delay go out once that many later periodic frames have
+        # gone (a TRIP or CONTROL in between does not count: it carries no sequence number)
+        busy = bool(self._held)  # this frame overtakes a held one: it must arrive undamaged
+        due = []
+        if periodic:
+            for k, (wait, data) in enumerate(self._held):
+                self._held[k] = (wait - 1, data)
+            due = [d for w, d in self._held if w <= 0]
+            self._held = [(w, d) for w, d in self._held if w > 0]
         cls = None
         # one fault at a time: no new one while a frame is held back, or two reorders could
         # cancel out (the second frame overtaking the first one back into order)
-        if periodic and self.classes and not self._held and self.rng.random() < self.rate:
+        if periodic and self.classes and not busy and self.rng.random() < self.rate:
             cls = self.rng.choice(self.classes)
         self._history = (self._history + [frame])[-8:]
         wire = encode_wire(frame)
@@ -166,4 +196,4 @@ class FaultProxy:
         return n
 
 
-__all__ = ["CLASSES", "DETECTED_BY", "FaultyLink", "FaultProxy"]
+__all__ = ["CLASSES", "DETECTED_BY", "FaultyLink", "FaultProxy", "undetected"]
