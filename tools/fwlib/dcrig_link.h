@@ -129,7 +129,7 @@ typedef struct {
 /* FEEDBACK, host -> controller (fixed point) */
 typedef struct {
     uint16_t seq;
-    uint16_t ack_seq;          /* seq of the last valid command the host applied */
+    uint16_t ack_seq;          /* seq of the last valid command the host applied; 0xFFFF: none yet */
     uint32_t model_time_us;    /* wraps at 2^32 */
     int32_t armature_current_cA;
     int32_t field_current_mA;
