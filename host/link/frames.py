@@ -427,6 +427,8 @@ class Codec:
 
     def unpack(self, frame: bytes):
         """Decode any frame kind; raises FrameError for anything this version cannot read."""
+        if len(frame) < 3:  # found by the fuzz target: an empty frame raised IndexError
+            raise FrameError(f"frame of {len(frame)} bytes is shorter than its 3-byte header")
         kind = frame[0] & 0x07
         if kind == KIND_COMMAND:
             return self.unpack_command(frame)
