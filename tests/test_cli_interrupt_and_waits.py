@@ -143,3 +143,53 @@ def test_sim_without_overspeed_has_no_flag(kernel, tmp_path):
                        env=_env(), capture_output=True, text=True, timeout=300)
     assert r.returncode == 0, r.stderr
     assert "model flags seen: none" in r.stdout and "overspeed" not in r.stderr, r.stdout + r.stderr
+
+
+def _demo_until_running(tmp_path):
+    """Start `dcrig demo` and read its stdout until the first live status line (the handshake
+    is done and frames run). Returns the process and the lines read."""
+    p = _dcrig("demo", "--out", str(tmp_path / "demo"), "--no-plot")
+    lines = []
+    deadline = time.monotonic() + 240
+    while time.monotonic() < deadline:
+        line = p.stdout.readline()
+        if not line:
+            break
+        lines.append(line)
+        if line.startswith("t="):
+            return p, lines
+    p.kill()
+    p.communicate(timeout=60)
+    raise AssertionError("demo never started its frames: " + "".join(lines))
+
+
+def _children(pid):
+    out = []
+    for task in os.listdir(f"/proc/{pid}/task"):
+        with open(f"/proc/{pid}/task/{task}/children", encoding="ascii") as fh:
+            out += [int(x) for x in fh.read().split()]
+    return out
+
+
+def test_demo_ends_at_once_when_its_controller_is_killed(kernel, tmp_path):
+    # the virtual cable no longer keeps the far end open once the controller answered: its
+    # death closes the cable, the host writes summary and files and exits 2 (findings, item 6)
+    p, _ = _demo_until_running(tmp_path)
+    kids = _children(p.pid)
+    assert len(kids) == 1, kids
+    os.kill(kids[0], signal.SIGKILL)
+    out, err = p.communicate(timeout=120)
+    assert p.returncode == 2, (out, err)
+    assert "summary (run stopped early)" in out
+    assert err.strip().splitlines() == [err.strip().splitlines()[0]] and "closed" in err, err
+    assert (tmp_path / "demo" / "frames.csv").stat().st_size > 0
+
+
+def test_ctrl_c_during_the_demo_is_one_line_and_keeps_the_record(kernel, tmp_path):
+    p, _ = _demo_until_running(tmp_path)
+    p.send_signal(signal.SIGINT)
+    out, err = p.communicate(timeout=120)
+    assert p.returncode == 130, (out, err)
+    assert err.strip().splitlines() == ["error: interrupted"], err  # the controller says nothing
+    assert "summary (run stopped early)" in out
+    assert (tmp_path / "demo" / "frames.csv").stat().st_size > 0
