@@ -264,7 +264,7 @@ def send_bye(session) -> None:
 def run_closed_loop(plant, link, *, encoding: str, paced: bool, timeline: Timeline, out_dir,
                     watchdog_periods: int = 10, on_link_loss: str = "block", handshake_timeout_s: float = 20.0,
                     plot: bool = True, out=None, command_timeout_s: float = 2.0,
-                    peer_timeout_s: float = 5.0) -> HostLoop:
+                    peer_timeout_s: float = 5.0, max_error_rate: float | None = 0.01) -> HostLoop:
     """Handshake on `link`, run the timeline lockstep or paced, print the summary, write files."""
     out = out if out is not None else sys.stdout  # looked up per call (tests swap sys.stdout)
     from .link import HostSession
@@ -273,7 +273,8 @@ def run_closed_loop(plant, link, *, encoding: str, paced: bool, timeline: Timeli
     period_us = int(round(plant.derived["frame_period_us"]))
     n_frames = int(timeline.end_s / (period_us * 1e-6)) + 1
     session = HostSession(link, encoding=encoding, frame_period_us=period_us)
-    loop = HostLoop(plant, session, period_us, watchdog_periods=watchdog_periods, on_link_loss=on_link_loss)
+    loop = HostLoop(plant, session, period_us, watchdog_periods=watchdog_periods, on_link_loss=on_link_loss,
+                    max_error_rate=max_error_rate)
     peer = session.handshake(timeout_s=handshake_timeout_s)
     if hasattr(link, "release_peer_hold"):
         link.release_peer_hold()  # a pty: the controller holds its end now; its death closes the cable

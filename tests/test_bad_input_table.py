@@ -160,6 +160,8 @@ CASES = [
     Case("serve_load_nan", SERVE + ["--load", "nan"], ("--load", "nan")),
     Case("serve_connect_timeout_nan", SERVE + ["--connect-timeout", "nan"], ("--connect-timeout",)),
     Case("serve_out_is_file", SERVE + ["--out", "{a_file}"], ("--out", "a_file")),
+    Case("serve_max_error_rate_nan", SERVE + ["--max-error-rate", "nan"], ("--max-error-rate", "nan")),
+    Case("serve_peer_timeout_zero", SERVE + ["--peer-timeout", "0"], ("--peer-timeout",)),
 ]
 
 

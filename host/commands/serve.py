@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import math
 
 from ..cli import SAFETY
 from . import add_config_args
@@ -41,6 +42,9 @@ def add_subparser(sub):
     p.add_argument("--peer-timeout", type=float, default=5.0, metavar="S",
                    help="lockstep: end the run when no valid command came for this long (dead or "
                    "disconnected controller); default 5 s")
+    p.add_argument("--max-error-rate", type=float, default=0.01, metavar="PER_FRAME",
+                   help="mark the run invalid when detected link errors exceed this many per frame "
+                   "(after 100 frames); default 0.01")
     p.set_defaults(func=_do_serve)
 
 WATCHDOG_MAX_PERIODS = 10000
@@ -62,6 +66,8 @@ def _do_serve(args):
     check_seconds("--connect-timeout", args.connect_timeout)
     check_seconds("--handshake-timeout", args.handshake_timeout)
     check_seconds("--peer-timeout", args.peer_timeout)
+    if not (math.isfinite(args.max_error_rate) and 0.0 <= args.max_error_rate <= 1.0):
+        raise ConfigError(f"--max-error-rate: must be within [0, 1] errors per frame, got {args.max_error_rate!r}")
     check_output_dir("--out", args.out)
     plant = load_plant(args)
     timeline = default_timeline(plant, args.load)
@@ -85,5 +91,6 @@ def _do_serve(args):
                 raise LinkTimeout(f"link '{link.url}': no controller connected within {args.connect_timeout:g} s")
         run_closed_loop(plant, link, encoding=args.encoding, paced=not args.lockstep, timeline=timeline,
                         out_dir=args.out, watchdog_periods=args.watchdog, on_link_loss=args.on_link_loss,
-                        handshake_timeout_s=handshake_s, peer_timeout_s=args.peer_timeout)
+                        handshake_timeout_s=handshake_s, peer_timeout_s=args.peer_timeout,
+                        max_error_rate=args.max_error_rate)
     return 0
