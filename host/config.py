@@ -56,6 +56,8 @@ def parse_override(text: str) -> tuple[str, Any]:
         value = tomllib.loads(f"v = {raw}")["v"]
     except tomllib.TOMLDecodeError:
         value = raw
+    except RecursionError as err:
+        raise ConfigError(f"--set: {key}: nested more deeply than a config value can be, got '{raw[:20]}...'") from err
     return key, value
 
 
@@ -63,18 +65,40 @@ def _rule_fail(src: str, path: str, rule: str, value: Any) -> ConfigError:
     return ConfigError(f"{src}: {path}: {rule}, got {value!r}")
 
 
+# Plausible magnitudes of any number in a config, in the units of its key. Beyond them a
+# value is a typing slip (1e308 H, 5e-324 A), and the model's arithmetic would overflow or
+# divide by zero long before physics had anything to say.
+MAGNITUDE_MAX = 1e9
+MAGNITUDE_MIN = 1e-9
+INT_MAX = 2**31 - 1
+FRAME_PERIOD_MAX_US = 100_000.0
+
+
+def _short(value: Any) -> Any:
+    """A value as a message shows it: a huge integer by its digit count, not its digits."""
+    if isinstance(value, int) and not isinstance(value, bool) and abs(value) > 10**15:
+        return f"a {len(str(abs(value)))}-digit integer"
+    return value
+
+
 def _check_type(src: str, key: Key, value: Any) -> Any:
     kind = key.kind
     if kind == "float":
         if isinstance(value, bool) or not isinstance(value, (int, float)):
             raise _rule_fail(src, key.path, "must be a number", value)
-        value = float(value)
+        try:
+            value = float(value)
+        except OverflowError:
+            raise _rule_fail(src, key.path, "must be a finite number (too large for a float)", _short(value)) from None
         if not math.isfinite(value):
             raise _rule_fail(src, key.path, "must be finite", value)
+        _check_magnitude(src, key.path, value)
         return value
     if kind == "int":
         if isinstance(value, bool) or not isinstance(value, int):
             raise _rule_fail(src, key.path, "must be a whole number", value)
+        if abs(value) > INT_MAX:
+            raise _rule_fail(src, key.path, f"must be a whole number within +-{INT_MAX}", _short(value))
         return value
     if kind == "bool":
         if not isinstance(value, bool):
@@ -89,11 +113,24 @@ def _check_type(src: str, key: Key, value: Any) -> Any:
             isinstance(v, bool) or not isinstance(v, (int, float)) for v in value
         ):
             raise _rule_fail(src, key.path, "must be a list of numbers", value)
-        out = tuple(float(v) for v in value)
+        try:
+            out = tuple(float(v) for v in value)
+        except OverflowError:
+            raise _rule_fail(src, key.path, "must hold finite numbers (one is too large for a float)",
+                             "a list") from None
         if not all(math.isfinite(v) for v in out):
             raise _rule_fail(src, key.path, "must hold finite numbers", value)
+        for v in out:
+            _check_magnitude(src, key.path, v)
         return out
     raise AssertionError(kind)
+
+
+def _check_magnitude(src: str, path: str, value: float) -> None:
+    a = abs(value)
+    if a > MAGNITUDE_MAX or (a != 0.0 and a < MAGNITUDE_MIN):
+        raise _rule_fail(src, path, f"magnitude must be 0 or from {MAGNITUDE_MIN:g} to {MAGNITUDE_MAX:g} "
+                         "(a plausible value in this key's unit)", value)
 
 
 def _check_rule(src: str, key: Key, value: Any) -> None:
@@ -159,10 +196,15 @@ def load(kind: str, path: str | Path, overrides: list[str] | tuple[str, ...] = (
         text = Path(path).read_text(encoding="utf-8")
     except OSError as err:
         raise ConfigError(f"{src}: cannot read file ({err.strerror})") from err
+    except UnicodeDecodeError as err:
+        raise ConfigError(f"{src}: (file): must be UTF-8 text (TOML), got byte 0x{err.object[err.start]:02x} "
+                          f"at offset {err.start}") from err
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise ConfigError(f"{src}: not valid TOML ({err})") from err
+    except RecursionError as err:
+        raise ConfigError(f"{src}: (file): arrays or tables nested too deeply to be a config") from err
     if kind not in data and kind == "machine":
         raise ConfigError(f"{src}: machine: required table is missing (is this a machine config?)")
     if kind == "converter" and "converter" not in data:
@@ -314,6 +356,10 @@ def _check_converter(cfg: Config) -> None:
     period = v["frame.period_us"]
     if period is not None and period < 50.0:
         raise ConfigError(f"{src}: frame.period_us: must be at least 50 us (a few model steps), got {period!r}")
+    if period is not None and period > FRAME_PERIOD_MAX_US:
+        # a frame is one kernel call and one firing-angle update: beyond 0.1 s the controller
+        # would see the bridge once every few mains cycles, and the model runs seconds per call
+        raise ConfigError(f"{src}: frame.period_us: must be at most {FRAME_PERIOD_MAX_US:g} us (0.1 s), got {period!r}")
     if v["bridge.alpha_min_deg"] >= v["bridge.alpha_max_deg"]:
         raise ConfigError(
             f"{src}: bridge.alpha_max_deg: must exceed alpha_min_deg ({v['bridge.alpha_min_deg']:g}), "

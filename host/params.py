@@ -52,7 +52,25 @@ def _copper(r_ref, temp_c, ref_c):
 
 
 def pack(machine: Config, converter: Config | None = None) -> Plant:
-    """Pack configs into arrays. Raises ConfigError if the step is too large for the plant."""
+    """Pack configs into arrays. Raises ConfigError if the step is too large for the plant, or
+    if values that pass their own rules together give a parameter the model cannot run with
+    (an overflow or a division by a vanishing value: never a numpy warning on the terminal)."""
+    import warnings
+
+    with np.errstate(all="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        plant = _pack(machine, converter)
+    names = {getattr(L, n): n for n in dir(L) if n.startswith("P_") and isinstance(getattr(L, n), int)}
+    for arr, what in ((plant.p, "parameter"), (plant.x0, "initial state"), (plant.u0, "input")):
+        bad = np.nonzero(~np.isfinite(arr))[0]
+        if len(bad):
+            label = names.get(int(bad[0]), f"#{int(bad[0])}") if what == "parameter" else f"#{int(bad[0])}"
+            raise ConfigError(f"{machine.source}: machine: the values together give a non-finite model "
+                              f"{what} ({label}); one value is far too small or too large, got {arr[bad[0]]!r}")
+    return plant
+
+
+def _pack(machine: Config, converter: Config | None = None) -> Plant:
     v = machine.values
     p = np.zeros(L.N_PARAM)
     conn_name = v["machine.connection"]
@@ -285,14 +303,26 @@ def derive(plant: Plant) -> dict:
         kphi_nl = emf_at(p, v["machine.rated_field_current_A"], 1.0)
         if kphi_nl > 0:
             d["no_load_speed_rpm"] = (vr / kphi_nl) / RPM
-    # the fastest electrical mode: armature loop with the supply, or the friction regulariser
+    # the fastest mode the fixed step must resolve: armature loop with the supply, the field
+    # circuit (its inductance falls with saturation, so the rated point counts as well as the
+    # straight part), the electromechanical oscillation 1/w0 = sqrt(tau_a tau_m) of armature
+    # and shaft (complex eigenvalues when tau_m < 4 tau_a; their magnitude sets the step), or
+    # the friction regulariser
     tau_fast = [taus["armature_s"]]
+    for name in ("field_unsaturated_s", "field_at_rated_s"):
+        if name in taus:
+            tau_fast.append(taus[name])
+    if "mechanical_s" in taus:
+        tau_fast.append(math.sqrt(taus["armature_s"] * taus["mechanical_s"]))
     load_ohm = v["terminal.load_ohm"]
     if load_ohm > 0:
         tau_fast.append((la + p[L.P_LSE_LEAK_H]) / (load_ohm + r_arm))
     if plant.converter is not None and int(p[L.P_SUPPLY_KIND]) == L.SUPPLY_CURRENT:
         tau_fast.append(p[L.P_ISRC_TAU_S])
     tau_min = min(tau_fast)
+    if not (math.isfinite(tau_min) and tau_min > 0.0):
+        raise ConfigError(f"{plant.machine.source}: machine: the values together give no finite positive "
+                          f"time constant (fastest {tau_min!r} s); check la_H, ra_ohm and the field keys")
     d["time_constants_s"] = taus
     d["tau_min_s"] = tau_min
     d["stable_step_us"] = 2.0 * tau_min * 1e6  # Heun: real eigenvalue limit h < 2 tau

@@ -103,7 +103,7 @@ MACHINE_KEYS = (
     Key("mechanics", "load_torque_Nm", "float", 0.0, "", "Load setting: the torque at rated speed (proportional, quadratic) or the constant torque, N m."),
     Key("mechanics", "prime_mover_speed_rpm", "float", None, "", "prime_mover load: shaft speed, r/min; default rated speed."),
     Key("sensors", "tacho_V_per_1000rpm", "float", 60.0, "gt0", "Tachogenerator constant, V per 1000 r/min."),
-    Key("sensors", "encoder_ppr", "int", 1024, "gt0", "Encoder pulses per revolution (the count is 4 x PPR per revolution)."),
+    Key("sensors", "encoder_ppr", "int", 1024, "range:1:1000000", "Encoder pulses per revolution (the count is 4 x PPR per revolution)."),
     Key("terminal", "voltage_V", "float", None, "", "DC source voltage when no converter is given; default rated voltage (motor) or 0 (generator)."),
     Key("terminal", "source_ohm", "float", 0.0, "ge0", "Internal resistance of that DC source, ohm (0: ideal)."),
     Key("terminal", "load_ohm", "float", 0.0, "ge0", "Resistor across the terminals (generator load), ohm; 0: none."),
@@ -130,7 +130,7 @@ CONVERTER_KEYS = (
         "Field supply of separately excited machines: ideal DC source, switched single-phase half-controlled bridge, or its average."),
     Key("field", "ac_voltage_V", "float", None, "gt0", "Field bridge ac supply (rms, taken from mains lines a-b through a transformer), V; default mains voltage."),
     Key("field", "alpha_min_deg", "float", 0.0, "range:0:180", "Field bridge smallest firing angle (field forcing limit), deg."),
-    Key("frame", "period_us", "float", None, "gt0", "Frame (controller update) period, us; default one pulse: 1e6 / (6 x mains frequency)."),
+    Key("frame", "period_us", "float", None, "gt0", "Frame (controller update) period, us, 50 us to 0.1 s; default one pulse: 1e6 / (6 x mains frequency)."),
 )
 
 KEYS_BY_KIND = {"machine": MACHINE_KEYS, "converter": CONVERTER_KEYS}

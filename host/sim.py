@@ -116,6 +116,57 @@ def parse_ramp(text: str) -> Segment:
     return Segment(name, t0, t1, v0, v1)
 
 
+def input_limits(plant: Plant) -> dict[str, tuple[float, float, str]]:
+    """Plausible range of each named input, in its user unit, for this plant: (lo, hi, basis).
+
+    A value outside cannot describe a test of this machine (1e30 V on a 440 V armature); the
+    model would only overflow, so it is refused before the run, naming the input."""
+    v = plant.machine.values
+    vr = v["machine.rated_voltage_V"]
+    ir = v["machine.rated_current_A"]
+    n_max = v["machine.max_speed_rpm"] or 1.2 * v["machine.rated_speed_rpm"]
+    t_r = abs(plant.derived["rated_torque_Nm"])
+    vf = max(vr, plant.derived.get("field_voltage_rated_V", 0.0))
+    vdo = plant.derived.get("vdo_V", vr)
+    lim = {
+        "terminal_voltage_V": (-10 * vr, 10 * vr, "10 x rated voltage"),
+        "bridge_voltage_ref_V": (-10 * vdo, 10 * vdo, "10 x the bridge's Vdo"),
+        "firing_angle_deg": (0.0, 180.0, "a firing angle"),
+        "field_angle_deg": (0.0, 180.0, "a firing angle"),
+        "bridge": (0.0, 2.0, "0 blocked, 1 forward, 2 reverse"),
+        "current_ref_A": (-10 * ir, 10 * ir, "10 x rated current"),
+        "field_voltage_V": (-10 * vf, 10 * vf, "10 x the rated field or armature voltage"),
+        "load_torque_Nm": (-10 * t_r, 10 * t_r, "10 x rated torque"),
+        "prime_speed_rpm": (-3 * n_max, 3 * n_max, "3 x the maximum speed"),
+        "load_ohm": (0.0, 1e9, "a resistor, ohm"),
+        "mains_pu": (0.0, 2.0, "per unit of the rated mains voltage"),
+        "mains_hz_dev": (-0.2 * 400, 0.2 * 400, "a frequency deviation, Hz"),
+        "misfire_mask": (0.0, 63.0, "a bit per thyristor"),
+        "short_mask": (0.0, 63.0, "a bit per thyristor"),
+        "fuse_blown_mask": (0.0, 7.0, "a bit per phase"),
+    }
+    for name in INPUTS:
+        lim.setdefault(name, (0.0, 1.0, "0 or 1"))
+    return lim
+
+
+def check_inputs(plant: Plant, segments: list[Segment], where: dict[str, str] | None = None) -> None:
+    """Refuse a segment whose value lies outside input_limits(): the error names the input."""
+    lim = input_limits(plant)
+    for seg in segments:
+        lo, hi, basis = lim[seg.name]
+        for val in (seg.v0, seg.v1):
+            if not lo <= val <= hi:
+                opt = (where or {}).get(seg.name, "--set-input/--change/--ramp")
+                raise ConfigError(f"{opt}: {seg.name}: must be within [{lo:g}, {hi:g}] ({basis}), got {val!r}")
+
+
+def overspeed_limit_rpm(plant: Plant) -> float:
+    """The speed above which a run is flagged: machine.max_speed_rpm, default 1.2 x rated."""
+    v = plant.machine.values
+    return float(v["machine.max_speed_rpm"] or 1.2 * v["machine.rated_speed_rpm"])
+
+
 def apply_profile(u: np.ndarray, u_start: np.ndarray, segments: list[Segment], t_s: float,
                   vdo_V: float = 0.0) -> None:
     """Set u for time t_s: the start value, then each segment in order (later ones win).
