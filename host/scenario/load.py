@@ -98,6 +98,7 @@ class Scenario:
     link: str
     encoding: str
     trip_classes: dict[str, list[int]]  # inline table from the scenario (overrides the profile)
+    firmware: dict[str, int]  # c_example: its command-line settings
     start_state: str
     start_speed_rpm: float
     start_temperature_C: float | None
@@ -232,7 +233,8 @@ def load_scenario(path: str | Path) -> Scenario:
         raise r.fail("plant.set", "must be a list of 'KEY=VALUE' strings", plant_set)
 
     ct = _table(r, data, "controller", required=True)
-    r.known(ct, ("kind", "settings", "set", "link", "encoding", "trip_classes"), "controller.")
+    r.known(ct, ("kind", "settings", "set", "link", "encoding", "trip_classes", "iref_A", "kp_cdeg_per_A",
+                 "trip_A"), "controller.")
     kind = r.text(ct, "kind", "controller.", "emulated", CONTROLLER_KINDS)
     settings = r.path(ct, "settings", "controller.", base, default=None)
     if kind in ("emulated", "process") and settings is None:
@@ -241,6 +243,15 @@ def load_scenario(path: str | Path) -> Scenario:
     if kind == "link" and not link:
         raise ConfigError(f"{src}: controller.link: required for kind 'link' (a port or URL)")
     encoding = r.text(ct, "encoding", "controller.", "fixed", ("fixed", "float32"))
+    firmware = {}
+    for k in ("iref_A", "kp_cdeg_per_A", "trip_A"):
+        if k in ct:
+            if kind != "c_example":
+                raise r.fail("controller." + k, "only for kind 'c_example'", ct[k])
+            v = ct[k]
+            if isinstance(v, bool) or not isinstance(v, int) or not 0 < v < 100000:
+                raise r.fail("controller." + k, "must be a whole number in 1..99999", v)
+            firmware[k] = v
     sset = ct.get("set", {})
     if not isinstance(sset, dict):
         raise r.fail("controller.set", "must be a table of settings keys", sset)
@@ -254,6 +265,9 @@ def load_scenario(path: str | Path) -> Scenario:
                                                   for c in codes):
             raise r.fail(f"controller.trip_classes.{cls}", "must be a list of trip codes 1..255", codes)
         trip_classes[cls] = list(codes)
+    if sset and kind != "emulated":
+        raise r.fail("controller.set", "only for kind 'emulated' (give a settings file of its own otherwise)",
+                     sorted(sset))
     if settings is not None:
         from host.controller.settings import load_settings
 
@@ -275,7 +289,10 @@ def load_scenario(path: str | Path) -> Scenario:
     temp = r.num(st, "armature_temperature_C", "start.", None, lambda v: -40 <= v <= 250, "must be in -40..250 C")
 
     timeline = _timeline(r, data.get("timeline", []), base, duration, converter is not None)
-    expects = _expects(r, data.get("expect", []), {a.id for a in timeline}, duration)
+    ids = {a.id for a in timeline}
+    # the end of a fault with a duration, a ramp or a profile is an event of its own: "<id>.end"
+    ids |= {a.id + ".end" for a in timeline if a.over_s > 0 or a.profile}
+    expects = _expects(r, data.get("expect", []), ids, duration)
 
     hm = _table(r, data, "harm")
     harm_keys = ("accept", "mechanical_limit_rpm", "commutation_speed_pu", "commutation_current_pu",
@@ -308,7 +325,7 @@ def load_scenario(path: str | Path) -> Scenario:
             raise r.fail("harm.commutation_speed_pu", "must start at 0 and increase", xs)
     return Scenario(path=path.resolve(), name=name, description=desc, duration_s=duration, machine=machine,
                     converter=converter, plant_set=list(plant_set), controller_kind=kind, settings=settings,
-                    settings_set=dict(sset), link=link, encoding=encoding, trip_classes=trip_classes,
+                    settings_set=dict(sset), link=link, encoding=encoding, trip_classes=trip_classes, firmware=firmware,
                     start_state=state, start_speed_rpm=speed, start_temperature_C=temp, timeline=timeline,
                     expects=expects, harm=harm, harm_accept=list(accept))
 
