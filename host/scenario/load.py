@@ -102,6 +102,7 @@ class Scenario:
     start_state: str
     start_speed_rpm: float
     start_temperature_C: float | None
+    start_field_up: bool
     timeline: list[Action]
     expects: list[Expect]
     harm: dict[str, Any] = field(default_factory=dict)
@@ -279,7 +280,7 @@ def load_scenario(path: str | Path) -> Scenario:
                 raise ConfigError(f"{src}: controller.set: {str(err).split(': ', 1)[1]}") from err
 
     st = _table(r, data, "start")
-    r.known(st, ("state", "speed_rpm", "armature_temperature_C"), "start.")
+    r.known(st, ("state", "speed_rpm", "armature_temperature_C", "field_up"), "start.")
     state = r.text(st, "state", "start.", "standstill", ("standstill", "running"))
     speed = r.num(st, "speed_rpm", "start.", 0.0)
     if state == "running" and speed == 0.0:
@@ -287,6 +288,11 @@ def load_scenario(path: str | Path) -> Scenario:
     if state == "standstill" and speed != 0.0:
         raise r.fail("start.speed_rpm", "must be 0 (or absent) for state 'standstill'", speed)
     temp = r.num(st, "armature_temperature_C", "start.", None, lambda v: -40 <= v <= 250, "must be in -40..250 C")
+    field_up = st.get("field_up", state == "running")
+    if not isinstance(field_up, bool):
+        raise r.fail("start.field_up", "must be true or false", field_up)
+    if state == "running" and not field_up:
+        raise r.fail("start.field_up", "must be true for state 'running' (a running machine has its field)", field_up)
 
     timeline = _timeline(r, data.get("timeline", []), base, duration, converter is not None)
     ids = {a.id for a in timeline}
@@ -326,7 +332,7 @@ def load_scenario(path: str | Path) -> Scenario:
     return Scenario(path=path.resolve(), name=name, description=desc, duration_s=duration, machine=machine,
                     converter=converter, plant_set=list(plant_set), controller_kind=kind, settings=settings,
                     settings_set=dict(sset), link=link, encoding=encoding, trip_classes=trip_classes, firmware=firmware,
-                    start_state=state, start_speed_rpm=speed, start_temperature_C=temp, timeline=timeline,
+                    start_state=state, start_speed_rpm=speed, start_temperature_C=temp, start_field_up=field_up, timeline=timeline,
                     expects=expects, harm=harm, harm_accept=list(accept))
 
 
@@ -408,7 +414,7 @@ def _expects(r: _Reader, items, ids: set[str], duration: float) -> list[Expect]:
         kind = r.text(it, "kind", w, choices=EXPECT_KINDS)
         allowed = {"trip": ("class", "after", "within_ms"), "no_trip": ("from_s", "to_s"),
                    "bounds": ("signal", "min", "max", "from_s", "to_s", "after"),
-                   "settles": ("signal", "target", "band", "by_s"),
+                   "settles": ("signal", "target", "band", "by_s", "to_s"),
                    "current_zero": ("within_ms", "below_A"), "harm": ("check",)}[kind]
         r.known(it, ("kind", "name") + allowed, w)
         e = Expect(kind=kind, name="")
@@ -443,6 +449,7 @@ def _expects(r: _Reader, items, ids: set[str], duration: float) -> list[Expect]:
             e.target = r.num(it, "target", w)
             e.band = r.num(it, "band", w, check=lambda v: v > 0, rule="must be > 0")
             e.by_s = r.num(it, "by_s", w, check=lambda v: 0 < v < duration, rule="must be inside the run")
+            e.to_s = r.num(it, "to_s", w, math.inf, lambda v: v > e.by_s, "must be > by_s")
         elif kind == "current_zero":
             e.within_ms = r.num(it, "within_ms", w, check=lambda v: v > 0, rule="must be > 0")
             e.below_A = r.num(it, "below_A", w, check=lambda v: v > 0, rule="must be > 0")

@@ -158,17 +158,17 @@ def _start_state(loop, scn: Scenario) -> None:
     x = loop.x
     if scn.start_temperature_C is not None:
         x[L.X_TEMP_ARM_C] = scn.start_temperature_C
+    if scn.start_field_up and loop.plant.machine.values["machine.connection"] != "series":
+        x[L.X_I_FIELD_A] = loop.plant.machine.values["machine.rated_field_current_A"]
     if scn.start_state == "running":
         x[L.X_SPEED_RAD_S] = scn.start_speed_rpm * RPM
-        if loop.plant.machine.values["machine.connection"] != "series":
-            x[L.X_I_FIELD_A] = loop.plant.machine.values["machine.rated_field_current_A"]
         # the operator holds run with the reference at the running speed from t = 0: the
         # controller closes its contactor and picks the machine up flying
         loop.operator.run, loop.operator.stop = 1, 0
         loop.operator.speed_ref_rpm = scn.start_speed_rpm
         loop.event("timeline", f"start: running at {scn.start_speed_rpm:g} r/min, field up")
     else:
-        loop.event("timeline", "start: standstill")
+        loop.event("timeline", "start: standstill" + (", field up" if scn.start_field_up else ""))
     loop._step(loop.x, loop.p, loop.u, loop.y, 0)  # outputs of the start state
 
 

@@ -125,7 +125,11 @@ def _one(e, frames, col, t, t_end, events, period, classes, trip, harm_results) 
                  f"(bounds {e.min:g}..{e.max:g}; nearest {measured:.4g} at {where:.3f} s, margin {margin:+.4g})",
                  measured, limit, margin, "", (lo, hi), float(where))
     if e.kind == "settles":
-        x = frames[:, col[e.signal]]
+        hi = min(e.to_s, t_end)
+        sel = t <= hi + 1e-9
+        t = t[sel]
+        t_end = hi
+        x = frames[sel, col[e.signal]]
         out_band = np.abs(x - e.target) > e.band
         bad = np.nonzero(out_band)[0]
         if len(t) == 0:
@@ -136,7 +140,7 @@ def _one(e, frames, col, t, t_end, events, period, classes, trip, harm_results) 
             settled = float(t[bad[-1] + 1])
         else:
             return R(e.name, e.kind, False, f"{e.signal} not within {e.target:g} +/- {e.band:g} at the end "
-                     f"({x[-1]:.4g})", limit=e.by_s, unit="s", window=(e.by_s, t_end))
+                     f"of the window at {t_end:.3g} s ({x[-1]:.4g})", limit=e.by_s, unit="s", window=(e.by_s, t_end))
         ok = settled <= e.by_s + 1e-9
         return R(e.name, e.kind, ok, f"{e.signal} within {e.target:g} +/- {e.band:g} from {settled:.3f} s on "
                  f"(required by {e.by_s:g} s, margin {e.by_s - settled:+.3f} s)", settled, e.by_s,

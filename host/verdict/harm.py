@@ -11,7 +11,7 @@ from the machine config and the scenario's [harm] table by host.scenario.run.har
     winding_temperature   armature temperature > the insulation class limit (IEC 60034-1
                           thermal classes, from memory: B 130 C, F 155 C, H 180 C)
     armature_overvoltage  |frame-mean terminal voltage| > overvoltage_V
-    current_rise_rate     |d(frame-mean Ia)/dt| between frames > di_dt_A_per_s
+    current_rise_rate     rise of |frame-mean Ia| between frames / frame period > di_dt_A_per_s
 
 A flagged check reports the first time and the worst value. Frame means smooth the bridge's
 ripple; peaks inside a frame are the kernel's per-frame peak current.
@@ -115,7 +115,9 @@ def harm_checks(frames: np.ndarray, columns, meta: dict) -> list[HarmResult]:
     period = float(meta["frame_period_s"])
     didt = np.zeros_like(ia)
     if len(ia) > 1:
-        didt[1:] = np.abs(np.diff(ia)) / period
+        # rises of |Ia| only: a trip that phases back to inversion end takes the current down
+        # fast, which is the protection working, not harm
+        didt[1:] = np.maximum(np.diff(np.abs(ia)), 0.0) / period
     lim = h["di_dt_A_per_s"]
     out.append(_first_worst(t, didt > lim, didt, lim, "current_rise_rate", "armature current rise rate above the "
                             "machine's limit", "A/s", accept))
