@@ -34,6 +34,8 @@ from host.signals import (
     TripReport,
 )
 
+RPM_TO_RAD_S = math.pi / 30.0
+
 # sequence states
 STOPPED = 0  # contactor open, pulses blocked, economy field
 CLOSING = 1  # contactor commanded, waiting for its feedback, the release delay and the field
@@ -99,6 +101,8 @@ class DriveController:
         self._kphi_V_per_rpm = (g("motor.rated_voltage_V") - self._ra * self._i_rated) / self._n_base
         self._mag_if = tuple(g("motor.magnetisation_if_pu"))
         self._mag_phi = tuple(g("motor.magnetisation_phi_pu"))
+        self._kt_Nm_per_A = self._kphi_V_per_rpm / RPM_TO_RAD_S  # torque per ampere at rated flux
+        self._j_ff = g("speed_loop.accel_feedforward_kgm2")
         self._tacho_k = g("tacho.volts_per_rpm")
         self._tau_tacho = g("tacho.filter_s")
         self._tau_emf = g("emf.filter_s")
@@ -170,7 +174,8 @@ class DriveController:
         self._field_pi = PI(g("field.kp_V_per_A"), g("field.ti_s"))
         self._emf_pi = PI(g("field.emf_kp_A_per_V"), g("field.emf_ti_s"))
         self._co = Changeover(self._dual, g("changeover.zero_current_A"),
-                              g("changeover.dead_time_s"), g("changeover.hysteresis_A"))
+                              g("changeover.dead_time_s"), g("changeover.hysteresis_A"),
+                              g("changeover.dwell_s"))
         self.signals = ControllerSignals(self)
         self._dt_cache = (-1.0, 0.0, 0.0, 0.0)
         self._await_run_release = False
@@ -388,9 +393,15 @@ class DriveController:
                 lo = -self._n_top if self._reverse else 0.0
                 if ref < lo:
                     ref = lo
+                w_before = self._ramp.out
                 w = self._ramp.step(ref, dt_s, self._accel, self._decel)
             else:
+                w_before = self._ramp.out
                 w = self._ramp.step(0.0, dt_s, self._stop_decel, self._stop_decel)
+            # acceleration feedforward: the current that accelerates the inertia at the ramp's
+            # rate, I = J dw/dt / (k phi), so the integrator holds only the load and nothing is
+            # left in it to overshoot with when the ramp ends
+            i_acc = self._j_ff * (w - w_before) / dt_s * RPM_TO_RAD_S / self._kt_Nm_per_A
             if state == STOPPING and w == 0.0 and -self._zero_speed < n < self._zero_speed:
                 # at rest: current to zero, then block pulses, then open the contactor
                 i_ref = 0.0
@@ -423,7 +434,13 @@ class DriveController:
                 # no torque while the bridges change over or a bridge soft-starts: freeze the
                 # speed integrator then, or it winds up and the drive hunts across zero current
                 hold = co.phase != CONDUCT or self._floor_limited
-                i_ref = self._speed_pi.step(w - n, dt_s, lo, hi, 0.0, 1.0 / phi_s, None, hold)
+                if self._dual and co.phase == CONDUCT:
+                    # a reference the active bridge cannot carry (the other sign, inside the
+                    # changeover hysteresis or dwell) gives no torque: integrating it winds the
+                    # loop up and it hunts from bridge to bridge at light load
+                    i_prev = self._i_ref
+                    hold = hold or (i_prev < 0.0 if co.bridge != BRIDGE_REVERSE else i_prev > 0.0)
+                i_ref = self._speed_pi.step(w - n, dt_s, lo, hi, i_acc / phi_s, 1.0 / phi_s, None, hold)
         else:
             i_ref = 0.0
             self._ramp.reset(0.0)
@@ -513,8 +530,11 @@ class DriveController:
                 if self._weakening and released:
                     n_abs = n if n >= 0.0 else -n
                     if_ff = self._if_rated
-                    if n_abs > self._n_base:
-                        # flux for the EMF setpoint at this speed, through the magnetisation curve
+                    if n_abs > 1.0:
+                        # flux for the EMF setpoint at this speed, through the magnetisation curve.
+                        # Continuous in speed: it leaves full field where k*phi*n reaches the setpoint
+                        # (a switch at base speed instead made a step of several amperes for a
+                        # change of 1 r/min, and the field rang around base speed)
                         phi_w = self._emf_set / (self._kphi_V_per_rpm * n_abs)
                         if phi_w < 1.0:
                             if_ff = interp(phi_w, self._mag_phi, self._mag_if) * self._if_rated

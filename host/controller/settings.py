@@ -110,6 +110,10 @@ _k("ramp.stop_decel_rpm_per_s", "float", REQUIRED, "must be > 0", _pos,
 _k("speed_loop.kp_A_per_rpm", "float", REQUIRED, "must be > 0", _pos,
    "Proportional gain at full flux: armature current per rpm of speed error.")
 _k("speed_loop.ti_s", "float", REQUIRED, "must be > 0", _pos, "Integral time.")
+_k("speed_loop.accel_feedforward_kgm2", "float", 0.0, "must be >= 0", _nonneg,
+   "Inertia (motor and load) for the acceleration feedforward: the current J dw/dt / (k phi) the "
+   "ramp needs is added to the speed loop's output, so its integrator holds only the load and "
+   "the speed does not overshoot at the end of a ramp; 0 = off.")
 _k("speed_loop.reverse_allowed", "bool", False, "", None,
    "Accept negative speed references (otherwise clamped at zero).")
 _k("speed_loop.current_limit_motoring_A", "float", REQUIRED, "must be > 0", _pos,
@@ -150,6 +154,9 @@ _k("changeover.dead_time_s", "float", 0.002, "must be in 0..0.1", _between(0, 0.
    "fires.")
 _k("changeover.hysteresis_A", "float", REQUIRED, "must be >= 0", _nonneg,
    "Current reference of the opposite sign that starts a changeover.")
+_k("changeover.dwell_s", "float", 0.0, "must be in 0..1", _between(0, 1),
+   "Time the current reference must ask for the other bridge before the changeover starts "
+   "(zero-current dwell against a changeover limit cycle at light load); 0 = at once.")
 
 # --- emf estimate ------------------------------------------------------------------------------
 _k("emf.filter_s", "float", 0.01, "must be in 0..1", _between(0, 1),
