@@ -435,11 +435,13 @@ class DriveController:
                 # speed integrator then, or it winds up and the drive hunts across zero current
                 hold = co.phase != CONDUCT or self._floor_limited
                 if self._dual and co.phase == CONDUCT:
-                    # a reference the active bridge cannot carry (the other sign, inside the
-                    # changeover hysteresis or dwell) gives no torque: integrating it winds the
-                    # loop up and it hunts from bridge to bridge at light load
+                    # a reference the active bridge cannot carry gives no torque: once it has
+                    # passed the changeover hysteresis (the changeover dwell is running) the
+                    # integrator stops there; winding it further made the new bridge start with
+                    # a large reference, and the drive hunted from bridge to bridge at light load
                     i_prev = self._i_ref
-                    hold = hold or (i_prev < 0.0 if co.bridge != BRIDGE_REVERSE else i_prev > 0.0)
+                    h = co.hysteresis_A
+                    hold = hold or (i_prev < -h if co.bridge != BRIDGE_REVERSE else i_prev > h)
                 i_ref = self._speed_pi.step(w - n, dt_s, lo, hi, i_acc / phi_s, 1.0 / phi_s, None, hold)
         else:
             i_ref = 0.0
