@@ -74,8 +74,11 @@ _k("drive.use_measured_mains", "bool", True, "", None,
 
 # --- motor ------------------------------------------------------------------------------------
 _k("motor.connection", "str", "separate", "", None,
-   "Field connection: separately excited (field loop active) or series (flux follows the "
-   "armature current; field loop and field-loss protection off).", ("separate", "series"))
+   "Field connection: separately excited (field loop active); series (flux follows the "
+   "armature current; field loop and field-loss protection off); shunt or compound (the shunt "
+   "field hangs across the armature: no field loop, pulses released without waiting for "
+   "field current, field loss judged against the field the armature voltage should drive).",
+   ("separate", "series", "shunt", "compound"))
 _k("motor.rated_voltage_V", "float", REQUIRED, "must be > 0", _pos, "Rated armature voltage.")
 _k("motor.rated_current_A", "float", REQUIRED, "must be > 0", _pos, "Rated armature current.")
 _k("motor.base_speed_rpm", "float", REQUIRED, "must be > 0", _pos,
@@ -254,6 +257,18 @@ _k("protection.contactor.timeout_s", "float", 0.5, "must be in 0..10", _between(
 _k("trip.suppress_timeout_s", "float", 0.02, "must be in 0..1", _between(0, 1),
    "After a trip, pulses stay at the inversion end until abs(Ia) < sequencing.zero_current_A or "
    "this time has passed; then pulses block and the contactor opens.")
+
+# --- voltage_start: run by armature voltage (a machine whose field hangs across the armature) ---
+_k("voltage_start.enabled", "bool", False, "", None,
+   "Run on an armature voltage ramp instead of the speed loop: the voltage reference moves at "
+   "ramp_V_per_s to rated voltage x (speed reference / base speed), held back while the "
+   "current is above current_limit_A; stop ramps it to zero. For shunt and compound machines "
+   "(a differential compound started fast can reverse).")
+_k("voltage_start.ramp_V_per_s", "float", 40.0, "must be > 0", _pos,
+   "Rate of the armature voltage reference, up and down.")
+_k("voltage_start.current_limit_A", "float", 0.0, "must be >= 0", _nonneg,
+   "Armature current above which the voltage reference stops rising (and falls back above "
+   "1.1 x this); 0 = speed_loop.current_limit_motoring_A.")
 
 # --- trip_classes: this controller's trip codes by fault class (scenario expectations use the
 # classes, so they never depend on one firmware's numbering) ----------------------------------

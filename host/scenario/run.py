@@ -101,6 +101,7 @@ def harm_limits(plant, scn: Scenario | None = None) -> dict:
         "field_loss_fraction": 0.4,  # field below 40 % of rated ...
         "field_loss_current_pu": 0.1,  # ... while the armature carries over 10 % of rated current
         "rated_field_current_A": v.get("machine.rated_field_current_A") or 0.0,
+        "rated_voltage_V": v["machine.rated_voltage_V"],
         "connection": v["machine.connection"],
     }
     if scn is not None:
