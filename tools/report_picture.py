@@ -36,12 +36,12 @@ def main(argv=None) -> int:
         n_ok = sum(e["passed"] for e in v["expectations"])
         harm = ", ".join(h["check"] for h in v["harm"] if h["flagged"]) or "-"
         rows.append([case.name, outcome, f"{n_ok}/{len(v['expectations'])}", harm[:44]])
-    fig = plt.figure(figsize=(15, 7.6))
-    ax = fig.add_axes([0.0, 0.0, 0.5, 0.94])
+    fig = plt.figure(figsize=(15, 6.4))
+    ax = fig.add_axes([0.005, 0.0, 0.49, 0.93])
     ax.axis("off")
     ax.set_title(f"dcrig suite report: {len(rows)} scenarios", fontsize=11, loc="left")
     tab = ax.table(cellText=rows, colLabels=["scenario", "outcome", "expectations", "harm flagged"],
-                   loc="upper left", cellLoc="left", colWidths=[0.36, 0.16, 0.14, 0.42])
+                   loc="upper left", cellLoc="left", colWidths=[0.34, 0.15, 0.13, 0.36])
     tab.auto_set_font_size(False)
     tab.set_fontsize(7.5)
     tab.scale(1.0, 1.25)
