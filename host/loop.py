@@ -125,10 +125,14 @@ class HostLoop:
     watchdog_periods : frames without a valid command that make a link-loss event
     on_link_loss : "block" (firing blocked, contactor opened) or "hold" (last command held)
     clock : injectable ns clock (tests force overruns with it)
+    recorder : a host.record.RunRecorder (columns REC_COLUMNS) that gets every frame row and
+        event as it happens, so a killed run keeps what it did; the in-memory array stays for
+        the live summary. The hand-off is one row copy, no disk I/O on this thread.
     """
 
     def __init__(self, plant: Plant, session, frame_period_us: int, watchdog_periods: int = 10,
-                 on_link_loss: str = "block", record_rows: int = 65536, clock=time.perf_counter_ns):
+                 on_link_loss: str = "block", record_rows: int = 65536, clock=time.perf_counter_ns,
+                 recorder=None):
         if on_link_loss not in ("block", "hold"):
             raise ConfigError(f"link: on_link_loss: expected one of ['block', 'hold'], got {on_link_loss!r}")
         from rtmodel.kernel import step_frame
@@ -153,6 +157,7 @@ class HostLoop:
         self.record = np.zeros((record_rows, len(REC_COLUMNS)))  # doubles when full
         self.n_rec = 0
         self.events: list[tuple[float, str, str]] = []  # (time_s, kind, text)
+        self.recorder = recorder
         self.stats = LoopStats()
         self.last_cmd = sig.Command()
         self.fb = sig.Feedback()
@@ -287,9 +292,14 @@ class HostLoop:
         r[22] = self.operator.speed_ref_rpm
         r[23] = (self.clock() - work_start_ns) * 1e-3
         self.n_rec = k + 1
+        if self.recorder is not None:
+            self.recorder.frame(r)
 
-    def event(self, kind: str, text: str) -> None:
-        self.events.append((float(self.y[L.Y_TIME_S]), kind, text))
+    def event(self, kind: str, text: str, **data) -> None:
+        t = float(self.y[L.Y_TIME_S])
+        self.events.append((t, kind, text))
+        if self.recorder is not None:
+            self.recorder.event(t, kind, text, **data)
 
     def rows(self) -> np.ndarray:
         return self.record[: self.n_rec]
