@@ -251,8 +251,10 @@ class RunRecorder:
                 self._db.execute("INSERT INTO run_end VALUES (1, ?, ?, ?, ?)",
                                  (str(status), _utc_now(), self._done, self._dropped))
                 self._db.execute("COMMIT")
-                # fold the WAL into the main file so record.sqlite alone is the whole record
+                # fold the WAL into the main file and leave WAL mode, so record.sqlite alone is
+                # the whole record (no -wal/-shm files beside it, readers create none)
                 self._db.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+                self._db.execute("PRAGMA journal_mode=DELETE")
                 self.status = str(status)
         except sqlite3.Error as e:
             err = e
