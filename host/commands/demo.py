@@ -71,6 +71,9 @@ def _do_demo(args):
                 [sys.executable, "-m", "host.cli", "controller", "--link", cable.slave_path,
                  "--settings", args.settings, "--quiet", "--idle-timeout", "10", "--handshake-timeout", "30"],
                 env=env,
+                # its own session: a Ctrl-C at the terminal reaches the host only, which stops the
+                # run, keeps the record and says bye; the child never prints an interrupt of its own
+                start_new_session=True,
             )
             try:
                 loop = run_closed_loop(plant, cable.host_link(), encoding=args.encoding, paced=args.paced,
