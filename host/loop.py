@@ -127,7 +127,8 @@ class HostLoop:
     clock : injectable ns clock (tests force overruns with it)
     recorder : a host.record.RunRecorder (columns REC_COLUMNS) that gets every frame row and
         event as it happens, so a killed run keeps what it did; the in-memory array stays for
-        the live summary. The hand-off is one row copy, no disk I/O on this thread.
+        the live summary. The hand-off publishes the array and its row count (no copy, no
+        disk I/O on this thread); the recorder's writer thread reads the new rows from it.
     """
 
     def __init__(self, plant: Plant, session, frame_period_us: int, watchdog_periods: int = 10,
@@ -293,7 +294,7 @@ class HostLoop:
         r[23] = (self.clock() - work_start_ns) * 1e-3
         self.n_rec = k + 1
         if self.recorder is not None:
-            self.recorder.frame(r)
+            self.recorder.publish(self.record, k + 1)  # zero copy: rows up to k are final
 
     def event(self, kind: str, text: str, **data) -> None:
         t = float(self.y[L.Y_TIME_S])
@@ -383,6 +384,8 @@ class HostLoop:
                     missed = (done - next_t) // period + 1
                     self.stats.deadline_misses += int(missed)
                     next_t += int(missed) * period
+                    self.event("deadline", f"frame deadline missed by {(done - next_t + int(missed) * period) / 1000:.0f} us; "
+                                           f"{int(missed)} frame(s) skipped", missed=int(missed))
                 if on_frame is not None and on_frame(self) is False:
                     jitter = jitter[: k + 1]
                     break

@@ -315,7 +315,11 @@ def run_closed_loop(plant, link, *, encoding: str, paced: bool, timeline: Timeli
             loop.event("counters", "end-of-run counters", **counters)
             if recorder.dropped:
                 print(f"  warning: the recorder dropped {recorder.dropped} frames (the disk did not keep up)", file=out)
-            recorder.close(end_status(stopped))
+            try:
+                recorder.close(end_status(stopped))
+            except DcrigError as err:  # the disk failed: say so, still print the summary
+                print(f"error: {err}", file=out)
+                stopped = stopped or err
     print("\nsummary" + (" (run stopped early)" if stopped else ""), file=out)
     for line in summary_lines(loop, timeline, wall):
         print("  " + line, file=out)

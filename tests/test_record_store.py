@@ -241,3 +241,27 @@ def test_configs_are_saved_as_resolved_toml_with_hashes(tmp_path):
         for part in path.split("."):
             node = node[part]
         assert node == (list(value) if isinstance(value, tuple) else value), path
+
+
+def test_publish_hands_over_the_callers_array_without_copying(tmp_path):
+    """HostLoop's path: it keeps its own row array (doubling it when full) and publishes it."""
+    data = _rows(3000)
+    arr = np.zeros((256, len(COLS)))
+    with RunRecorder(tmp_path / "r.sqlite", COLS, commit_interval_s=0.005) as rec:
+        for k, row in enumerate(data):
+            if k >= len(arr):
+                arr = np.concatenate([arr, np.zeros_like(arr)])
+            arr[k] = row
+            rec.publish(arr, k + 1)
+            if k % 500 == 0:
+                time.sleep(0.02)  # let the writer read mid-run, across a doubling
+        assert rec.rows_recorded == 3000
+    assert np.array_equal(open_record(tmp_path / "r.sqlite").frames(), data)
+
+
+def test_publish_and_frame_are_not_mixed(tmp_path):
+    rec = RunRecorder(tmp_path / "r.sqlite", COLS)
+    rec.frame(_rows(1)[0])
+    rec.publish(_rows(5), 5)
+    with pytest.raises(RecordError, match="mixed"):
+        rec.close()

@@ -14,7 +14,8 @@ per-frame time with recording on and off, side by side in one run. Prints markdo
    Rows per second and milliseconds per commit (median, max) for each.
 2. The recorder end to end (host.record.RunRecorder): a producer offers rows at a per-step
    rate on the wall clock for a few seconds; rows kept, rows dropped, the hand-off time.
-3. HostLoop frame time, recording off / on, interleaved: lockstep against the emulated
+3. HostLoop frame time, recording off / on, interleaved (HostLoop hands rows over with
+   RunRecorder.publish: no copy, one tuple store): lockstep against the emulated
    controller process over the virtual cable (as tools/bench_link.py), our timer from the
    command bytes read to the feedback bytes written, median / p99 / p99.9, the difference
    on/off, and the hand-off call alone. Target (issue 9): at most +10 us on the p99.
@@ -185,14 +186,14 @@ def loop_runs(n_frames: int, pairs: int) -> list[dict]:
                 session = HostSession(link, encoding="fixed", frame_period_us=period)
                 loop = HostLoop(plant, session, period, record_rows=n_frames + WARMUP_FRAMES + 8, recorder=rec)
                 if rec is not None:  # time the hand-off call alone as well
-                    real = rec.frame
+                    real = rec.publish
 
-                    def timed(row, real=real):
+                    def timed(rows, n, real=real):
                         a = time.perf_counter_ns()
-                        real(row)
+                        real(rows, n)
                         hand.append(time.perf_counter_ns() - a)
 
-                    rec.frame = timed
+                    rec.publish = timed
                 timer = FrameTimer(link, session)
                 proc = subprocess.Popen([sys.executable, "-m", "host.cli", "controller", "--link", cable.slave_path,
                                          "--settings", str(SETTINGS), "--quiet", "--idle-timeout", "30"],
