@@ -39,7 +39,7 @@ REC_COLUMNS = (
     "controller_trip", "trip_code", "armature_current_A", "armature_current_peak_A", "field_current_A",
     "terminal_voltage_V", "emf_V", "speed_rpm", "torque_Nm", "load_torque_Nm", "firing_angle_deg",
     "armature_temperature_C", "model_status", "host_status", "link_ok", "op_speed_ref_rpm",
-    "host_work_us",
+    "host_work_us", "field_mode",
 )  # fmt: skip
 R = {name: k for k, name in enumerate(REC_COLUMNS)}
 
@@ -292,6 +292,7 @@ class HostLoop:
         r[21] = 0.0 if self._link_lost else 1.0
         r[22] = self.operator.speed_ref_rpm
         r[23] = (self.clock() - work_start_ns) * 1e-3
+        r[24] = c.field_mode  # with the command columns, what an open-loop replay needs
         self.n_rec = k + 1
         if self.recorder is not None:
             self.recorder.publish(self.record, k + 1)  # zero copy: rows up to k are final

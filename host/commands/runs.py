@@ -16,6 +16,8 @@ EXAMPLE = """examples:
   dcrig runs export dcrig-demo --format comtrade --revision 2013 --binary   # around each trip
   dcrig runs export dcrig-demo --format comtrade --around operator:load --pre 0.2 --post 2
   dcrig runs export dcrig-demo --format comtrade --from 5.5 --to 7.5
+  dcrig runs replay dcrig-demo                 # open loop: the recorded commands drive the model again
+  dcrig runs replay dcrig-demo --set machine.ra_ohm=0.02 --tolerance speed_rpm=2
 
 A record is read, never changed. A run killed before its end shows status `unfinished`:
 its rows up to the last commit (at most 100 ms before the kill) are there, nothing after.
@@ -58,6 +60,21 @@ def add_subparser(sub):
     ep.add_argument("--post", type=float, default=1.0, metavar="S", help="time after the event (default 1.0 s)")
     ep.add_argument("--into", metavar="DIR", help="output folder (default RUN/exports)")
     ep.set_defaults(func=_do_export)
+    rp = acts.add_parser("replay", help="open-loop replay: the recorded commands drive the model, compared with the record",
+                         epilog=EXAMPLE + "\n" + SAFETY, formatter_class=fmt,
+                         description="Replay a closed-loop run open loop: its recorded command trace (firing angles or "
+                         "voltage references, field commands, contactor) and operator/load timeline drive the model with "
+                         "no controller, from the run's own resolved configs (plus --set changes); the response is "
+                         "compared with the recorded one column by column. Prints where and by how much it departs; "
+                         "exit status 1 when a column leaves its tolerance. The replay is recorded in RUN/replays/.")
+    rp.add_argument("run", metavar="RUN", help="run folder or record.sqlite of a demo or serve run")
+    rp.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE",
+                    help="change a config key for the replay, e.g. --set machine.ra_ohm=0.02 (repeatable)")
+    rp.add_argument("--compare", metavar="COL,COL", help="columns to compare (default: armature and field current, "
+                    "terminal voltage, speed, torque)")
+    rp.add_argument("--tolerance", action="append", default=[], metavar="COL=ABS",
+                    help="absolute tolerance of a column in its unit (default 1 %% of its recorded peak)")
+    rp.set_defaults(func=_do_replay)
 
 
 def _run_dirs(base: Path) -> list[Path]:
@@ -203,3 +220,27 @@ def _do_export(args):
                   f"(C37.111-{args.revision}, {'binary' if args.binary else 'ASCII'}; coarsest step "
                   f"{worst[1]:.3g} on {worst[0]})")
     return 0
+
+
+def _do_replay(args):
+    from ..errors import ConfigError
+    from ..replay import DEFAULT_COMPARE, open_loop_replay
+
+    columns = tuple(c.strip() for c in args.compare.split(",") if c.strip()) if args.compare else DEFAULT_COMPARE
+    tolerances = {}
+    for text in args.tolerance:
+        col, sep, val = text.partition("=")
+        try:
+            tolerances[col.strip()] = float(val)
+        except ValueError as err:
+            raise ConfigError(f"--tolerance: '{text}': expected COLUMN=VALUE, e.g. speed_rpm=2") from err
+        if not sep:
+            raise ConfigError(f"--tolerance: '{text}': expected COLUMN=VALUE, e.g. speed_rpm=2")
+    res = open_loop_replay(args.run, args.overrides, columns, tolerances)
+    print(f"open-loop replay of {res.source}: {res.frames} frames"
+          + (f" with {', '.join(args.overrides)}" if args.overrides else "") + f"; record {res.run_dir}")
+    if res.identical:
+        print("  reproduces the record frame for frame (every compared value equal to the bit)")
+    for d in res.departures:
+        print("  " + d.line())
+    return 1 if res.departs else 0
