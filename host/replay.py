@@ -217,3 +217,246 @@ def open_loop_replay(source, overrides=(), columns=DEFAULT_COMPARE, tolerances: 
         return ReplayResult(rd.path, run_dir, deps, len(replayed), identical)
     finally:
         rd.close()
+
+
+# ---------------------------------------------------------------------- a CSV trace
+# the command fields a trace may drive (our names, see host.signals.Command), the model inputs
+# it may drive as disturbances (host.sim.INPUTS names), and the feedback it may be compared on
+TRACE_COMMANDS = ("mode", "bridge_select", "armature_cmd", "field_mode", "field_cmd", "contactor")
+MODE_NAMES = {"firing_angle": sig.MODE_FIRING_ANGLE, "voltage": sig.MODE_VOLTAGE, "current": sig.MODE_CURRENT}
+FIELD_MODE_NAMES = {"firing_angle": sig.FIELD_MODE_FIRING_ANGLE, "voltage": sig.FIELD_MODE_VOLTAGE}
+
+
+@dataclass
+class Channel:
+    """One mapped quantity: a constant, or a trace column times scale plus offset."""
+
+    column: str | None
+    scale: float = 1.0
+    offset: float = 0.0
+    constant: float | None = None
+
+    def values(self, table: dict, where: str) -> np.ndarray:
+        if self.constant is not None:
+            n = len(next(iter(table.values())))
+            return np.full(n, self.constant)
+        if self.column not in table:
+            raise ConfigError(f"{where}: column '{self.column}' is not in the trace (columns: {', '.join(table)})")
+        return table[self.column] * self.scale + self.offset
+
+
+@dataclass
+class TraceMap:
+    source: str
+    time: Channel
+    start_s: float | None
+    command_at: str  # "frame_start" or "frame_end"
+    commands: dict
+    inputs: dict
+    feedback: dict
+
+
+def _channel(src: str, key: str, v, names: dict | None = None) -> Channel:
+    if isinstance(v, bool):
+        return Channel(None, constant=float(v))
+    if isinstance(v, (int, float)):
+        if not math.isfinite(v):
+            raise ConfigError(f"{src}: {key}: must be finite, got {v!r}")
+        return Channel(None, constant=float(v))
+    if isinstance(v, str):
+        if names is not None and v in names:
+            return Channel(None, constant=float(names[v]))
+        if names is not None:
+            raise ConfigError(f"{src}: {key}: expected one of {sorted(names)} or a table {{column = ...}}, got {v!r}")
+        return Channel(v)
+    if isinstance(v, dict):
+        extra = set(v) - {"column", "scale", "offset"}
+        if extra or "column" not in v or not isinstance(v["column"], str):
+            raise ConfigError(f"{src}: {key}: expected {{column = \"NAME\", scale = A, offset = B}}, got {v!r}")
+        ch = Channel(v["column"], float(v.get("scale", 1.0)), float(v.get("offset", 0.0)))
+        if not (math.isfinite(ch.scale) and math.isfinite(ch.offset)) or ch.scale == 0:
+            raise ConfigError(f"{src}: {key}: scale must be finite and nonzero, offset finite, got {v!r}")
+        return ch
+    raise ConfigError(f"{src}: {key}: expected a column name, a number or a table, got {v!r}")
+
+
+def load_trace_map(path) -> TraceMap:
+    """The channel mapping file (TOML, docs/record.md#trace-map): which trace column is which
+    command, input and feedback, with scaling. Every problem is one ConfigError line."""
+    import tomllib
+
+    src = str(path)
+    try:
+        data = tomllib.loads(Path(path).read_text(encoding="utf-8"))
+    except OSError as err:
+        raise ConfigError(f"{src}: cannot read file ({err.strerror})") from err
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as err:
+        raise ConfigError(f"{src}: not valid TOML ({err})") from err
+    unknown = set(data) - {"trace", "commands", "inputs", "feedback"}
+    if unknown:
+        raise ConfigError(f"{src}: {sorted(unknown)[0]}: unknown table (known: trace, commands, inputs, feedback)")
+    tr = data.get("trace", {})
+    bad = set(tr) - {"time", "start_s", "command_at"}
+    if bad:
+        raise ConfigError(f"{src}: trace.{sorted(bad)[0]}: unknown key (known: time, start_s, command_at)")
+    if "time" not in tr:
+        raise ConfigError(f"{src}: trace.time: required key is missing (the time column, in s or a table with scale)")
+    time_ch = _channel(src, "trace.time", tr["time"])
+    if time_ch.constant is not None:
+        raise ConfigError(f"{src}: trace.time: must name a column, got {tr['time']!r}")
+    start = tr.get("start_s")
+    if start is not None and not (isinstance(start, (int, float)) and math.isfinite(start)):
+        raise ConfigError(f"{src}: trace.start_s: must be a finite time in s, got {start!r}")
+    command_at = tr.get("command_at", "frame_start")
+    if command_at not in ("frame_start", "frame_end"):
+        raise ConfigError(f"{src}: trace.command_at: expected 'frame_start' or 'frame_end', got {command_at!r}")
+    cmds = {}
+    for k, v in data.get("commands", {}).items():
+        if k not in TRACE_COMMANDS:
+            raise ConfigError(f"{src}: commands.{k}: unknown command field (known: {', '.join(TRACE_COMMANDS)})")
+        names = MODE_NAMES if k == "mode" else FIELD_MODE_NAMES if k == "field_mode" else None
+        cmds[k] = _channel(src, f"commands.{k}", v, names)
+    if "armature_cmd" not in cmds:
+        raise ConfigError(f"{src}: commands.armature_cmd: required key is missing (the firing angle, voltage or current command)")
+    from .sim import INPUTS
+
+    inputs = {}
+    for k, v in data.get("inputs", {}).items():
+        if k not in INPUTS or INPUTS[k][0] < 0:
+            raise ConfigError(f"{src}: inputs.{k}: unknown model input (names in host/sim.py INPUTS)")
+        inputs[k] = _channel(src, f"inputs.{k}", v)
+    from .loop import REC_COLUMNS
+
+    fb = {}
+    for k, v in data.get("feedback", {}).items():
+        if k not in REC_COLUMNS:
+            raise ConfigError(f"{src}: feedback.{k}: not a frame column (known: {', '.join(REC_COLUMNS)})")
+        fb[k] = _channel(src, f"feedback.{k}", v)
+        if fb[k].constant is not None:
+            raise ConfigError(f"{src}: feedback.{k}: must name a trace column")
+    if not fb:
+        raise ConfigError(f"{src}: feedback: at least one recorded feedback column is needed to compare with")
+    return TraceMap(src, time_ch, None if start is None else float(start), command_at, cmds, inputs, fb)
+
+
+def read_trace_csv(path) -> dict:
+    """A CSV with a header row of column names and numbers below: {name: float64 array}."""
+    import csv
+
+    src = str(path)
+    try:
+        with open(path, newline="", encoding="utf-8") as fh:
+            rows = list(csv.reader(fh))
+    except OSError as err:
+        raise ConfigError(f"{src}: cannot read file ({err.strerror})") from err
+    except UnicodeDecodeError as err:
+        raise ConfigError(f"{src}: not a text CSV file ({err.reason} at byte {err.start})") from err
+    if len(rows) < 3:
+        raise ConfigError(f"{src}: a trace needs a header row and at least two rows of values")
+    head = [h.strip() for h in rows[0]]
+    body = [r for r in rows[1:] if r]
+    for k, r in enumerate(body, start=2):
+        if len(r) != len(head):
+            raise ConfigError(f"{src}: line {k}: {len(r)} values, the header names {len(head)} columns")
+    try:
+        arr = np.array(body, dtype=float)
+    except ValueError as err:
+        raise ConfigError(f"{src}: a value is not a number ({err})") from err
+    if not np.all(np.isfinite(arr)):
+        raise ConfigError(f"{src}: non-finite values (nan, inf) in the trace")
+    return {h: arr[:, k] for k, h in enumerate(head)}
+
+
+def trace_replay(trace_path, map_path, machine, converter=None, overrides=(), tolerances: dict | None = None,
+                 run_dir=None) -> ReplayResult:
+    """Open-loop replay of a CSV trace from another recorder (a drive's own, or a dcrig
+    frames.csv), with a channel map. Commands are held from one trace sample to the next
+    (zero-order hold, as a controller's output is); recorded feedback is interpolated
+    linearly to the end of each model frame and compared with the model's."""
+    from types import SimpleNamespace
+
+    from .commands import load_plant
+    from .loop import REC_COLUMNS, HostLoop, R
+    from .recording import end_status, open_run_record
+    from .sim import INPUTS
+
+    tolerances = dict(tolerances or {})
+    tmap = load_trace_map(map_path)
+    table = read_trace_csv(trace_path)
+    where = str(trace_path)
+    t_tr = tmap.time.values(table, f"{tmap.source}: trace.time")
+    if np.any(np.diff(t_tr) <= 0):
+        k = int(np.nonzero(np.diff(t_tr) <= 0)[0][0])
+        raise ConfigError(f"{where}: time column '{tmap.time.column}': not increasing at row {k + 2} "
+                          f"({t_tr[k]!r} then {t_tr[k + 1]!r})")
+    plant = load_plant(SimpleNamespace(machine=str(machine), converter=str(converter) if converter else None,
+                                       overrides=list(overrides)))
+    period_us = int(round(plant.derived["frame_period_us"]))
+    period = period_us * 1e-6
+    start = t_tr[0] if tmap.start_s is None else tmap.start_s
+    n_frames = int(math.floor((t_tr[-1] - start) / period + 1e-9))
+    if n_frames < 1:
+        raise ConfigError(f"{where}: the trace is shorter than one model frame ({period_us} us)")
+    lag = period if tmap.command_at == "frame_end" else 0.0
+    t_cmd = start + np.arange(n_frames) * period + lag
+    # a sample within 1 % of a frame after the frame's instant counts as at it: trace times are
+    # printed with few digits (a dcrig frames.csv keeps six)
+    hold = np.clip(np.searchsorted(t_tr, t_cmd + 0.01 * period, side="right") - 1, 0, len(t_tr) - 1)
+
+    def held(ch: Channel, key: str) -> np.ndarray:
+        return ch.values(table, f"{tmap.source}: {key}")[hold]
+
+    defaults = {"mode": sig.MODE_FIRING_ANGLE, "bridge_select": sig.BRIDGE_FORWARD,
+                "field_mode": sig.FIELD_MODE_VOLTAGE, "field_cmd": 0.0, "contactor": 1}
+    cols = {k: held(tmap.commands[k], f"commands.{k}") if k in tmap.commands else np.full(n_frames, float(v))
+            for k, v in {**defaults, "armature_cmd": 0.0}.items()}
+    commands = [sig.Command(seq=k & 0xFFFF, mode=int(cols["mode"][k]), bridge_select=int(cols["bridge_select"][k]),
+                            armature_cmd=float(cols["armature_cmd"][k]), field_mode=int(cols["field_mode"][k]),
+                            field_cmd=float(cols["field_cmd"][k]), contactor=int(cols["contactor"][k]))
+                for k in range(n_frames)]
+    in_vals = {name: held(ch, f"inputs.{name}") for name, ch in tmap.inputs.items()}
+
+    class _Inputs:  # loop hook: the trace's disturbances, held per frame
+        def __init__(self):
+            self.k = 0
+
+        def __call__(self, lp):
+            for name, v in in_vals.items():
+                idx, scale = INPUTS[name]
+                lp.u[idx] = v[min(self.k, n_frames - 1)] * scale
+            self.k += 1
+
+    trace_path = Path(trace_path)
+    run_dir = Path(run_dir) if run_dir is not None else trace_path.parent / (trace_path.stem + "-replay")
+    run_dir = new_run_dir(run_dir.parent, run_dir.name, option="--out")  # never overwritten
+    recorder = open_run_record(Path(run_dir), REC_COLUMNS, plant, {
+        "run_kind": "trace_replay", "run_name": "open-loop replay of a trace", "source": str(trace_path),
+        "trace_map": str(map_path), "overrides": list(overrides), "frame_period_us": period_us,
+        "link": "playback of the trace's commands"})
+    loop = HostLoop(plant, PlaybackSession(commands), period_us, record_rows=n_frames + 8, recorder=recorder)
+    loop.hooks.append(_Inputs())
+    err = None
+    try:
+        loop.run_lockstep(n_frames + 1, command_timeout_s=1e-3)
+    except BaseException as e:
+        err = e
+        raise
+    finally:
+        rows = loop.rows()
+        t_end = start + rows[:, R["time_s"]]  # trace time at the end of each model frame
+        deps = []
+        for col, ch in tmap.feedback.items():
+            want = np.interp(t_end, t_tr, ch.values(table, f"{tmap.source}: feedback.{col}"))
+            got = rows[:, R[col]]
+            diff = np.abs(got - want)
+            tol = tolerances.get(col, DEFAULT_TOLERANCE_FRACTION * max(float(np.max(np.abs(want))) if len(want) else 0.0, 1e-9))
+            outside = np.nonzero(diff > tol)[0]
+            k = int(np.argmax(diff)) if len(diff) else 0
+            deps.append(Departure(col, float(tol), float(diff[k]) if len(diff) else 0.0,
+                                  float(t_end[k]) if len(diff) else 0.0,
+                                  float(t_end[outside[0]]) if len(outside) else None, int(len(outside)), len(diff)))
+        for d in deps:
+            loop.event("replay", d.line(), column=d.column, tolerance=d.tolerance, max_abs_diff=d.max_abs_diff,
+                       first_outside_s=d.first_outside_s)
+        recorder.close(end_status(err))
+    return ReplayResult(trace_path, Path(run_dir), deps, len(rows), False)

@@ -74,3 +74,59 @@ def test_replay_command_exit_status_and_bad_sources(demo_run, tmp_path, capsys):
         rc = main(argv)
         err = capsys.readouterr().err
         assert rc == 2 and err.startswith("error: ") and len(err.strip().splitlines()) == 1, (argv, err)
+
+
+ROOT = Path(__file__).resolve().parents[1]
+MAP = ROOT / "configs" / "replay" / "dcrig_frames_map.toml"
+F3 = ROOT / "configs" / "machines" / "kestrel_f3_stand.toml"
+F3_DUAL = ROOT / "configs" / "converters" / "kestrel_f3_dual.toml"
+
+
+def test_a_csv_trace_replays_open_loop(demo_run, tmp_path):
+    """The demo's own frames.csv as a trace from "another recorder": six significant digits
+    per value, commands held per frame. Open loop, rounding integrates, so only the speed and
+    field current are held to 1 % of their peak everywhere (the armature current in
+    discontinuous conduction near standstill is far more sensitive to a 1e-4 degree change)."""
+    from host.replay import trace_replay
+
+    res = trace_replay(demo_run / "frames.csv", MAP, F3, F3_DUAL, run_dir=tmp_path / "rep")
+    by = {d.column: d for d in res.departures}
+    assert by["speed_rpm"].first_outside_s is None, by["speed_rpm"].line()
+    assert by["field_current_A"].first_outside_s is None, by["field_current_A"].line()
+    assert by["armature_current_A"].frames_outside < 0.05 * res.frames
+    with open_record(tmp_path / "rep") as rd:
+        assert rd.status == "complete" and rd.meta["run_kind"] == "trace_replay"
+        assert len(rd.frames()) == res.frames > 4000
+    # with the armature resistance doubled the speed leaves its tolerance
+    with open_record(demo_run) as src:
+        ra = src.meta["configs"]["machine"]["values"]["machine.ra_ohm"]
+    res2 = trace_replay(demo_run / "frames.csv", MAP, F3, F3_DUAL, [f"machine.ra_ohm={2 * ra!r}"],
+                        run_dir=tmp_path / "rep2")
+    base, changed = by["armature_current_A"], {d.column: d for d in res2.departures}["armature_current_A"]
+    # it departs where current first flows, long before the rounding of the trace shows, and far more often
+    assert changed.first_outside_s is not None and changed.frames_outside >= 5 * base.frames_outside + 10
+    assert base.first_outside_s is None or changed.first_outside_s < base.first_outside_s
+
+
+@pytest.mark.parametrize("damage", ["unsorted", "missing_column", "unknown_key", "not_numbers", "no_feedback"])
+def test_bad_traces_and_maps_give_one_line(demo_run, tmp_path, capsys, damage):
+    trace = tmp_path / "t.csv"
+    mp = tmp_path / "m.toml"
+    lines = (demo_run / "frames.csv").read_text().splitlines()[:200]
+    text = MAP.read_text()
+    if damage == "unsorted":
+        lines[50], lines[51] = lines[51], lines[50]
+    elif damage == "missing_column":
+        text = text.replace('armature_cmd = { column = "armature_cmd" }', 'armature_cmd = { column = "alpha_deg" }')
+    elif damage == "unknown_key":
+        text = text.replace("[commands]", "[commands]\nfiring = 3")
+    elif damage == "not_numbers":
+        lines[20] = lines[20].replace(",", ",x", 1)
+    elif damage == "no_feedback":
+        text = text.split("[feedback]")[0]
+    trace.write_text("\n".join(lines) + "\n")
+    mp.write_text(text)
+    rc = main(["runs", "replay", "--trace", str(trace), "--map", str(mp), "--machine", str(F3), "--converter", str(F3_DUAL)])
+    err = capsys.readouterr().err
+    assert rc == 2 and err.startswith("error: ") and len(err.strip().splitlines()) == 1, err
+    assert not (tmp_path / "t-replay").exists()  # refused before anything ran

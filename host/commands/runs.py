@@ -18,6 +18,8 @@ EXAMPLE = """examples:
   dcrig runs export dcrig-demo --format comtrade --from 5.5 --to 7.5
   dcrig runs replay dcrig-demo                 # open loop: the recorded commands drive the model again
   dcrig runs replay dcrig-demo --set machine.ra_ohm=0.02 --tolerance speed_rpm=2
+  dcrig runs replay --trace site/f3-trip.csv --map site/f3-map.toml \
+      --machine configs/machines/kestrel_f3_stand.toml --converter configs/converters/kestrel_f3_dual.toml
 
 A record is read, never changed. A run killed before its end shows status `unfinished`:
 its rows up to the last commit (at most 100 ms before the kill) are there, nothing after.
@@ -67,7 +69,13 @@ def add_subparser(sub):
                          "no controller, from the run's own resolved configs (plus --set changes); the response is "
                          "compared with the recorded one column by column. Prints where and by how much it departs; "
                          "exit status 1 when a column leaves its tolerance. The replay is recorded in RUN/replays/.")
-    rp.add_argument("run", metavar="RUN", help="run folder or record.sqlite of a demo or serve run")
+    rp.add_argument("run", metavar="RUN", nargs="?", help="run folder or record.sqlite of a demo or serve run")
+    rp.add_argument("--trace", metavar="FILE.csv", help="replay a CSV trace from another recorder instead of a run "
+                    "(needs --map and --machine)")
+    rp.add_argument("--map", metavar="MAP.toml", help="channel map of the trace: time, commands, inputs, feedback "
+                    "(docs/record.md)")
+    rp.add_argument("--machine", metavar="MACHINE.toml", help="machine config for a trace replay")
+    rp.add_argument("--converter", metavar="CONVERTER.toml", help="converter config for a trace replay")
     rp.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE",
                     help="change a config key for the replay, e.g. --set machine.ra_ohm=0.02 (repeatable)")
     rp.add_argument("--compare", metavar="COL,COL", help="columns to compare (default: armature and field current, "
@@ -236,7 +244,18 @@ def _do_replay(args):
             raise ConfigError(f"--tolerance: '{text}': expected COLUMN=VALUE, e.g. speed_rpm=2") from err
         if not sep:
             raise ConfigError(f"--tolerance: '{text}': expected COLUMN=VALUE, e.g. speed_rpm=2")
-    res = open_loop_replay(args.run, args.overrides, columns, tolerances)
+    if args.trace:
+        from ..replay import trace_replay
+
+        if args.run or not (args.map and args.machine):
+            raise ConfigError("--trace: give the trace with --map MAP.toml and --machine MACHINE.toml, and no RUN")
+        res = trace_replay(args.trace, args.map, args.machine, args.converter, args.overrides, tolerances)
+    elif not args.run:
+        raise ConfigError("replay: give a RUN (run folder or record.sqlite) or --trace FILE.csv")
+    else:
+        if args.map or args.machine or args.converter:
+            raise ConfigError("replay: --map, --machine and --converter go with --trace; a RUN brings its own configs")
+        res = open_loop_replay(args.run, args.overrides, columns, tolerances)
     print(f"open-loop replay of {res.source}: {res.frames} frames"
           + (f" with {', '.join(args.overrides)}" if args.overrides else "") + f"; record {res.run_dir}")
     if res.identical:
