@@ -367,10 +367,38 @@ def read_trace_csv(path) -> dict:
     return {h: arr[:, k] for k, h in enumerate(head)}
 
 
+def read_trace_comtrade(cfg_path) -> dict:
+    """A COMTRADE pair (a drive's own fault record): {"time": s from the first sample, channel
+    id: values} for every analog and status channel. Checked first by our own reader of the
+    .cfg (missing .dat, channel counts, sizes, unsorted times are one line each), then read
+    with the `comtrade` package (PyPI), a reader written by others from the standard."""
+    from .record.export import check_comtrade_pair
+
+    check_comtrade_pair(cfg_path)
+    try:
+        import comtrade
+    except ImportError as err:
+        raise ConfigError(f"{cfg_path}: replaying a COMTRADE trace needs the comtrade package "
+                          "(pip install comtrade)") from err
+    ct = comtrade.Comtrade(use_double_precision=True, ignore_warnings=True)
+    try:
+        ct.load(str(cfg_path))
+    except Exception as err:  # the library's own errors are many kinds; one line for all
+        raise ConfigError(f"{cfg_path}: cannot read the COMTRADE files ({err.__class__.__name__}: {err})") from err
+    table = {"time": np.asarray(ct.time, dtype=float)}
+    for name, values in zip(ct.analog_channel_ids, ct.analog):
+        table[name.strip()] = np.asarray(values, dtype=float)
+    for name, values in zip(ct.status_channel_ids, ct.status):
+        table[name.strip()] = np.asarray(values, dtype=float)
+    if not all(np.all(np.isfinite(v)) for v in table.values()):
+        raise ConfigError(f"{cfg_path}: missing or non-finite samples in the COMTRADE data")
+    return table
+
+
 def trace_replay(trace_path, map_path, machine, converter=None, overrides=(), tolerances: dict | None = None,
                  run_dir=None) -> ReplayResult:
-    """Open-loop replay of a CSV trace from another recorder (a drive's own, or a dcrig
-    frames.csv), with a channel map. Commands are held from one trace sample to the next
+    """Open-loop replay of a trace from another recorder (a drive's own, or a dcrig frames.csv):
+    a CSV, or a COMTRADE .cfg (with its .dat; the time column is then "time"), with a channel map. Commands are held from one trace sample to the next
     (zero-order hold, as a controller's output is); recorded feedback is interpolated
     linearly to the end of each model frame and compared with the model's."""
     from types import SimpleNamespace
@@ -382,7 +410,8 @@ def trace_replay(trace_path, map_path, machine, converter=None, overrides=(), to
 
     tolerances = dict(tolerances or {})
     tmap = load_trace_map(map_path)
-    table = read_trace_csv(trace_path)
+    is_comtrade = str(trace_path).lower().endswith(".cfg")
+    table = read_trace_comtrade(trace_path) if is_comtrade else read_trace_csv(trace_path)
     where = str(trace_path)
     t_tr = tmap.time.values(table, f"{tmap.source}: trace.time")
     if np.any(np.diff(t_tr) <= 0):

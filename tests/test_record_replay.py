@@ -130,3 +130,27 @@ def test_bad_traces_and_maps_give_one_line(demo_run, tmp_path, capsys, damage):
     err = capsys.readouterr().err
     assert rc == 2 and err.startswith("error: ") and len(err.strip().splitlines()) == 1, err
     assert not (tmp_path / "t-replay").exists()  # refused before anything ran
+
+
+def test_a_comtrade_trace_replays_open_loop_and_a_missing_dat_is_one_line(demo_run, tmp_path, capsys):
+    """A COMTRADE pair as a drive's recorder would leave it (here our own binary export of the
+    demo, read with the independent `comtrade` package): commands quantised to 16 bits, the
+    speed and field current still within 1 % of their peaks open loop."""
+    from host.replay import trace_replay
+
+    assert main(["runs", "export", str(demo_run), "--format", "comtrade", "--binary", "--into", str(tmp_path)]) == 0
+    cfg = tmp_path / "run-1999-bin.cfg"
+    with open_record(demo_run) as src:
+        period_s = src.meta["frame_period_us"] * 1e-6
+    mp = tmp_path / "map.toml"
+    # COMTRADE time runs from the first sample, which is the end of the first frame
+    mp.write_text(MAP.read_text().replace('time = "time_s"', 'time = "time"')
+                  .replace("start_s = 0.0", f"start_s = {-period_s!r}"))
+    res = trace_replay(cfg, mp, F3, F3_DUAL, run_dir=tmp_path / "rep")
+    by = {d.column: d for d in res.departures}
+    assert by["speed_rpm"].first_outside_s is None and by["field_current_A"].first_outside_s is None
+    assert by["armature_current_A"].frames_outside < 0.05 * res.frames
+    (tmp_path / "run-1999-bin.dat").unlink()
+    rc = main(["runs", "replay", "--trace", str(cfg), "--map", str(mp), "--machine", str(F3)])
+    err = capsys.readouterr().err
+    assert rc == 2 and "run-1999-bin.dat is missing" in err and len(err.strip().splitlines()) == 1

@@ -70,8 +70,8 @@ def add_subparser(sub):
                          "compared with the recorded one column by column. Prints where and by how much it departs; "
                          "exit status 1 when a column leaves its tolerance. The replay is recorded in RUN/replays/.")
     rp.add_argument("run", metavar="RUN", nargs="?", help="run folder or record.sqlite of a demo or serve run")
-    rp.add_argument("--trace", metavar="FILE.csv", help="replay a CSV trace from another recorder instead of a run "
-                    "(needs --map and --machine)")
+    rp.add_argument("--trace", metavar="FILE", help="replay a trace from another recorder instead of a run: a CSV, "
+                    "or a COMTRADE .cfg beside its .dat (needs --map and --machine)")
     rp.add_argument("--map", metavar="MAP.toml", help="channel map of the trace: time, commands, inputs, feedback "
                     "(docs/record.md)")
     rp.add_argument("--machine", metavar="MACHINE.toml", help="machine config for a trace replay")
