@@ -53,6 +53,8 @@ def test_rows_and_events_round_trip_exactly(tmp_path):
     np.testing.assert_array_equal(rd.column("speed_rpm"), data[:, 2])
     win = rd.frames(1.0, 2.0)
     assert win[0, 0] == 1.0 and win[-1, 0] == 2.0 and len(win) == 1001
+    assert np.array_equal(np.concatenate(list(rd.iter_frames())), data)  # the streaming path too
+    assert np.array_equal(np.concatenate(list(rd.iter_frames(1.0, 2.0))), win)
 
 
 def test_a_row_is_copied_when_handed_over(tmp_path):

@@ -35,7 +35,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .rundir import write_atomic
+from .rundir import AtomicTextFile, write_atomic
 from .store import RecordError, RecordReader
 
 REVISIONS = ("1999", "2013")
@@ -110,19 +110,18 @@ def windows(reader: RecordReader, *, around: str | None = None, t_from_s: float 
 
 # ---------------------------------------------------------------------- CSV
 def export_frames_csv(reader: RecordReader, path, columns=None, t_from_s=None, t_to_s=None) -> Path:
-    """frames.csv as the runs always wrote it: a header of column names, values as %.6g."""
-    rows = reader.frames(t_from_s, t_to_s)
+    """frames.csv as the runs always wrote it: a header of column names, values as %.6g.
+    Streamed block by block from the record, written whole or not at all."""
     names = list(reader.columns) if columns is None else list(columns)
     missing = [c for c in names if c not in reader.R]
     if missing:
         raise RecordError(f"{reader.path}: no frame column '{missing[0]}'")
     idx = [reader.R[c] for c in names]
-    buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
-    w.writerow(names)
-    for r in rows[:, idx]:
-        w.writerow([f"{v:.6g}" for v in r])
-    write_atomic(Path(path), buf.getvalue())
+    fmt = ",".join(["%.6g"] * len(idx))
+    with AtomicTextFile(path) as fh:
+        fh.write(",".join(names) + "\n")
+        for rows in reader.iter_frames(t_from_s, t_to_s):
+            np.savetxt(fh, rows[:, idx], fmt=fmt, delimiter=",")
     return Path(path)
 
 

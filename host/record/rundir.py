@@ -95,6 +95,30 @@ def write_atomic(path: Path, data: str | bytes) -> None:
         raise
 
 
+class AtomicTextFile:
+    """A text file written through a temporary file and renamed into place on success, so a
+    long export (millions of CSV rows) streams to disk and is still whole or absent."""
+
+    def __init__(self, path):
+        self.path = Path(path)
+        fd, self._tmp = tempfile.mkstemp(prefix="." + self.path.name + ".", suffix=".tmp", dir=self.path.parent)
+        self.fh = os.fdopen(fd, "w", newline="")
+
+    def __enter__(self):
+        return self.fh
+
+    def __exit__(self, exc_type, exc, tb):
+        self.fh.close()
+        if exc_type is None:
+            os.replace(self._tmp, self.path)
+        else:
+            try:
+                os.unlink(self._tmp)
+            except OSError:
+                pass
+        return False
+
+
 def save_configs(run_dir, configs: dict) -> dict:
     """Write each resolved config as run_dir/configs/<name>.toml; return meta entries:
     {name: {"source": file, "sha256": hash of the written TOML, "values": resolved values}}.

@@ -432,6 +432,29 @@ class RecordReader:
             rows = rows[(t >= args[0]) & (t <= args[1])]
         return rows.astype(np.float64, copy=True)
 
+    def iter_frames(self, t_from_s: float | None = None, t_to_s: float | None = None):
+        """The committed rows block by block (arrays of up to a few thousand rows), in order:
+        for exports of long runs without holding the whole record in memory."""
+        n_cols = len(self.columns)
+        tc = self.R.get("time_s")
+        lo = -np.inf if t_from_s is None else t_from_s
+        hi = np.inf if t_to_s is None else t_to_s
+        expect = 0
+        try:
+            cur = self._db.execute("SELECT first_row, n_rows, data FROM frame_blocks ORDER BY first_row")
+            for first, n, data in cur:
+                if first != expect or len(data) != n * n_cols * 8:
+                    raise RecordError(f"{self.path}: frame block at row {first} is damaged or out of place")
+                expect = first + n
+                rows = np.frombuffer(data, dtype="<f8").reshape(n, n_cols).astype(np.float64)
+                if tc is not None and (t_from_s is not None or t_to_s is not None):
+                    t = rows[:, tc]
+                    rows = rows[(t >= lo) & (t <= hi)]
+                if len(rows):
+                    yield rows
+        except sqlite3.Error as err:
+            raise RecordError(f"{self.path}: not a readable dcrig record ({err})") from err
+
     def column(self, name: str, rows: np.ndarray | None = None) -> np.ndarray:
         if name not in self.R:
             raise RecordError(f"{self.path}: no frame column '{name}' (columns: {', '.join(self.columns)})")
