@@ -186,13 +186,13 @@ def run_scenario(scn: Scenario, out_dir=None, *, link_url: str | None = None, fw
     settings = controller_settings(scn)
     kind = "link" if link_url else scn.controller_kind
     url = link_url or scn.link
-    if kind == "link" and settings is None and not scn.trip_classes:
-        settings = None  # the emulated controller's numbering is assumed (say so in meta)
     table = trip_class_table(scn, settings)
-    if not table:
+    table_source = "controller profile and scenario" if table else ""
+    if not table:  # no profile, no table: the emulated controller's numbering is assumed
         from host.controller.protection import TripCode
 
         table = {int(c): c.name.lower() for c in TripCode if c}
+        table_source = "assumed: the emulated controller's numbering (give the controller a profile)"
     period_us = int(round(plant.derived["frame_period_us"]))
     n_frames = int(math.ceil(scn.duration_s / (period_us * 1e-6) - 1e-9))
     meta = {
@@ -206,6 +206,7 @@ def run_scenario(scn: Scenario, out_dir=None, *, link_url: str | None = None, fw
         "frame_period_s": period_us * 1e-6,
         "duration_s": scn.duration_s,
         "trip_classes": {str(k): v for k, v in table.items()},
+        "trip_classes_source": table_source,
         "harm": harm_limits(plant, scn),
         "machine": plant.machine["machine.name"],
     }
