@@ -191,12 +191,38 @@ def _check_machine(cfg: Config) -> None:
     for path in need:
         if v[path] is None:
             raise ConfigError(f"{src}: {path}: required for connection '{conn}'")
-    xs = v["machine.magnetization.field_current_A"]
-    es = v["machine.magnetization.emf_V"]
     p_x = "machine.magnetization.field_current_A"
     p_e = "machine.magnetization.emf_V"
-    if len(xs) < 4:
-        raise _rule_fail(src, p_x, "needs at least 4 points", list(xs))
+    p_at = "machine.magnetization.ampere_turns"
+    p_n = "machine.magnetization.speed_rpm"
+    k_flux = v["machine.flux_constant_Vs"]
+    if k_flux is not None:
+        if series_like:
+            raise ConfigError(f"{src}: machine.flux_constant_Vs: a series machine's flux follows its current; give its curve, got {k_flux!r}")
+        if v[p_x] or v[p_at] or v[p_e]:
+            raise ConfigError(f"{src}: machine.flux_constant_Vs: give either a flux constant or a magnetization curve, not both, got {k_flux!r}")
+        # the straight line through the rated point, E = K phi w (i / I_f,rated), with no residual
+        n_c = v[p_n] or v["machine.rated_speed_rpm"]
+        i_r = v["machine.rated_field_current_A"]
+        v[p_n] = n_c
+        v[p_x] = (0.0, 2.0 * i_r)
+        v[p_e] = (0.0, 2.0 * k_flux * n_c * math.pi / 30.0)
+    elif v[p_at]:
+        if v[p_x]:
+            raise ConfigError(f"{src}: {p_at}: give the curve in field amperes or in ampere-turns, not both, got both")
+        turns = v["machine.field_turns_per_pole"]
+        if turns is None:
+            raise ConfigError(f"{src}: machine.field_turns_per_pole: required with {p_at} (to turn ampere-turns into amperes)")
+        v[p_x] = tuple(at / turns for at in v[p_at])
+        p_x = p_at  # rule failures below name the key the user wrote
+    if not v["machine.magnetization.field_current_A"]:
+        raise ConfigError(f"{src}: machine.magnetization.field_current_A: required (or ampere_turns, or machine.flux_constant_Vs)")
+    if v[p_n] is None:
+        raise ConfigError(f"{src}: {p_n}: required key is missing")
+    xs = v["machine.magnetization.field_current_A"]
+    es = v[p_e]
+    if len(xs) < 2:
+        raise _rule_fail(src, p_x, "needs at least 2 points", list(xs))
     if len(xs) > 32:
         raise _rule_fail(src, p_x, "allows at most 32 points", len(xs))
     if len(es) != len(xs):
@@ -225,14 +251,16 @@ def _check_machine(cfg: Config) -> None:
     # rated values must agree with each other and with the curve
     vr = v["machine.rated_voltage_V"]
     ir = v["machine.rated_current_A"]
-    pr = v["machine.rated_power_kW"] * 1e3
+    pr = (v["machine.rated_power_kW"] or 0.0) * 1e3
     nr = v["machine.rated_speed_rpm"]
-    if pr > vr * ir * 1.0001:
+    if not pr:
+        cfg.warnings.append("machine.rated_power_kW not given: the rating cross-check (power against rated voltage x current) is skipped")
+    elif pr > vr * ir * 1.0001:
         raise ConfigError(
             f"{src}: machine.rated_power_kW: must not exceed rated voltage x rated current "
             f"({vr * ir / 1e3:.1f} kW), got {pr / 1e3:g}"
         )
-    if pr < 0.3 * vr * ir:
+    if pr and pr < 0.3 * vr * ir:
         raise ConfigError(
             f"{src}: machine.rated_power_kW: below 30 % of rated voltage x rated current "
             f"({vr * ir / 1e3:.1f} kW) is not a plausible rating, got {pr / 1e3:g}"
@@ -254,7 +282,9 @@ def _check_machine(cfg: Config) -> None:
             f"voltage ({vr:g} V): curve and ratings disagree, got last point {es[-1]:g}"
         )
     if conn != "series":
-        fr = v["machine.field_resistance_ohm"] * (235.0 + v["machine.field_temp_C"]) / (235.0 + v["machine.resistance_ref_C"])
+        fr = v["machine.field_resistance_ohm"]
+        if not v["machine.resistances_as_measured"]:
+            fr *= (235.0 + v["machine.field_temp_C"]) / (235.0 + v["machine.resistance_ref_C"])
         vf = (fr + v["machine.field_rheostat_ohm"]) * v["machine.rated_field_current_A"]
         if conn != "separate" and vf > 1.2 * vr:
             raise ConfigError(

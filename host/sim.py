@@ -81,19 +81,22 @@ def _name_ok(name: str, where: str) -> None:
         raise ConfigError(f"{where}: unknown input '{name}'{more} (known: {', '.join(sorted(INPUTS))})")
 
 
-def parse_step(text: str) -> Segment:
-    """'NAME@T=VALUE', e.g. 'terminal_voltage_V@0.5=440'."""
+def parse_change(text: str, option: str = "--change") -> Segment:
+    """'NAME@T=VALUE', e.g. 'terminal_voltage_V@0.5=440': the input jumps to VALUE at T."""
     try:
         lhs, val = text.split("=", 1)
         name, t = lhs.split("@", 1)
         t_s = float(t)
         v = float(val)
     except ValueError as err:
-        raise ConfigError(f"--step: '{text}': expected NAME@TIME_S=VALUE, e.g. load_torque_Nm@1.5=4000") from err
-    _name_ok(name, "--step")
+        raise ConfigError(f"{option}: '{text}': expected NAME@TIME_S=VALUE, e.g. load_torque_Nm@1.5=4000") from err
+    _name_ok(name, option)
     if not (math.isfinite(t_s) and t_s >= 0 and math.isfinite(v)):
-        raise ConfigError(f"--step: '{text}': time must be >= 0 and values finite")
+        raise ConfigError(f"{option}: '{text}': time must be >= 0 and values finite")
     return Segment(name, t_s, t_s, v, v)
+
+
+parse_step = parse_change  # old name (the option was --step); kept while callers move over
 
 
 def parse_ramp(text: str) -> Segment:
@@ -209,6 +212,52 @@ def run_offline(plant: Plant, t_end_s: float, sample_s: float, segments: list[Se
     if on_rows is not None and done > flushed:
         on_rows(Y[flushed:done])
     return Y[:, L.Y_TIME_S].copy(), Y
+
+
+def steady_start_state(plant: Plant) -> np.ndarray:
+    """The initial state of a motor already running in steady state on its DC source: field
+    up and the speed where the motor's torque meets the configured load (host.opoint), so a
+    run can start there instead of from rest. Speed-dependent loads (proportional, quadratic)
+    are met by fixed-point iteration on the load law.
+
+    Raises ConfigError where no such state exists or the supply is not a DC source."""
+    from . import opoint
+
+    v = plant.machine.values
+    src = plant.machine.source
+    if plant.converter is not None:
+        raise ConfigError("--from-steady: starts from the DC source's steady state; give no --converter "
+                          f"(a bridge's steady state depends on the firing angle), got {plant.converter.source}")
+    if v["machine.duty"] != "motor":
+        raise ConfigError(f"{src}: machine.duty: --from-steady needs a motor, got {v['machine.duty']!r}")
+    vt = float(plant.u0[L.U_VT_V])
+    kind = v["mechanics.load"]
+    t_set = float(plant.u0[L.U_LOAD_TORQUE_NM])
+    w_r = v["machine.rated_speed_rpm"] * RPM
+    if kind == "prime_mover":
+        op = opoint.solve_motor(plant, vt, speed_rpm=float(plant.u0[L.U_PRIME_SPEED_RAD_S]) / RPM)
+    else:
+        law = {"none": lambda w: 0.0, "constant": lambda w: abs(t_set), "overhauling": lambda w: t_set,
+               "proportional": lambda w: t_set * w / w_r, "quadratic": lambda w: t_set * (w / w_r) ** 2}[kind]
+        w = w_r
+        op = None
+        for _ in range(60):
+            op = opoint.solve_motor(plant, vt, load_torque_Nm=law(w))
+            if op.state is None:
+                break
+            if abs(op.state.w - w) < 1e-9 * max(abs(w), 1.0):
+                break
+            w = op.state.w
+    if op is None or op.state is None:
+        why = getattr(op, "reason", "") if op is not None else ""
+        raise ConfigError(f"{src}: mechanics.load: --from-steady: no steady running state at {vt:g} V with this load"
+                          + (f" ({why})" if why else ""))
+    st = op.state
+    x = plant.new_state()
+    x[L.X_I_LINE_A] = st.i1
+    x[L.X_I_FIELD_A] = st.ish
+    x[L.X_SPEED_RAD_S] = st.w
+    return x
 
 
 CSV_COLUMNS = (

@@ -91,6 +91,28 @@ class MagCurve:
         self.e_res = float(self.e[0])
         self.i1 = float(self.i[1])
 
+    def tangent_from_origin_slope(self) -> float:
+        """The textbook tangent construction on the curve with the residual taken off: the
+        line through the origin that touches E(i) - E_res. Its touching point solves
+        E'(i) i = E(i) - E_res (found here with scipy's brentq); on a curve that is concave
+        from the foot it touches at the origin and the slope is E'(0)."""
+        from scipy.optimize import brentq
+
+        def g(i):
+            e, de = self._pos(i)
+            return de * i - (e - self.e_res)
+
+        grid = np.linspace(1e-9, self.i[-1], 4001)
+        vals = [g(x) for x in grid]
+        # every touching point (g falls through zero) is a candidate, and the origin; on a
+        # straight stretch g is zero to rounding, so keep the steepest of the candidates
+        best = self._pos(0.0)[1]
+        for a, b, ga, gb in zip(grid, grid[1:], vals, vals[1:]):
+            if ga > 0.0 >= gb:
+                i_t = brentq(g, a, b, xtol=1e-14)
+                best = max(best, self._pos(i_t)[1])
+        return best
+
     def _pos(self, i: float):
         if i >= self.i[-1]:
             s = (self.e[-1] - self.e[-2]) / (self.i[-1] - self.i[-2])
@@ -356,7 +378,7 @@ def simulate(m: Machine, s0, segments, t_eval, rtol=1e-9, atol=None, method="Rad
 # ----------------------------------------------------------------------------------------------
 # Harness: test-machine configs and segment runs of the compiled kernel
 # ----------------------------------------------------------------------------------------------
-# Invented test machines ("Harrowgate test bay"): small enough that every time constant is
+# Invented test machines (the Kestrel Bay workshop test bay): small enough that every time constant is
 # tens of milliseconds, so transients settle within a second of simulated time.
 _BASE = """
 [machine]
@@ -410,7 +432,7 @@ def machine_toml(conn: str, duty: str = "motor", compound: str = "cumulative", l
         curve = _SERIES_CURVE
     elif conn in (LONG_SHUNT, SHORT_SHUNT):
         field += "\nseries_resistance_ohm = 0.1\nseries_leakage_H = 0.001\nseries_turns_ratio = 0.002"
-    return _BASE.format(name=f"Harrowgate test {conn}", conn=conn, compound=compound, duty=duty,
+    return _BASE.format(name=f"Kestrel workshop test {conn}", conn=conn, compound=compound, duty=duty,
                         field=field, curve=curve, load=load)
 
 

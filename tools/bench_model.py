@@ -45,10 +45,11 @@ if str(ROOT) not in sys.path:
 from host.config import load  # noqa: E402
 from host.errors import DcrigError  # noqa: E402
 from host.params import pack  # noqa: E402
+from host.shipped import shipped_dir  # noqa: E402
 from rtmodel import layout as L  # noqa: E402
 
-MACHINES = ROOT / "configs" / "machines"
-CONVERTERS = ROOT / "configs" / "converters"
+MACHINES = shipped_dir("machines")
+CONVERTERS = shipped_dir("converters")
 C_SOURCE = ROOT / "tools" / "bench_c" / "sep_heun.c"
 FRAME_S = 1.0 / 300.0  # one 6-pulse period at 50 Hz: the controller's natural update
 TARGET_RTF_10US = 300.0  # switched bridge at 10 us on one core (the target)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 import math
 
+from ..cli import SAFETY
 from . import add_config_args, load_plant
 
 EXAMPLE = """example:
@@ -18,7 +19,7 @@ def add_subparser(sub):
     p = sub.add_parser("check", help="validate configs and print derived quantities",
                        description="Validate a machine (and converter) config and print rated EMF, flux constant, "
                        "time constants, no-load speed, critical field resistance, step limits and warnings.",
-                       epilog=EXAMPLE, formatter_class=argparse.RawDescriptionHelpFormatter)
+                       epilog=EXAMPLE + "\n" + SAFETY, formatter_class=argparse.RawDescriptionHelpFormatter)
     add_config_args(p)
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=_do_check)
@@ -80,7 +81,7 @@ def _do_check(args):
     if "no_load_speed_rpm" in d:
         rows.append(("no-load speed at rated voltage", d["no_load_speed_rpm"], "r/min"))
     if "critical_field_ohm_at_rated_speed" in d:
-        rows.append(("critical field resistance at rated speed", d["critical_field_ohm_at_rated_speed"], "ohm"))
+        rows.append(("critical field resistance at rated speed (tangent from the origin)", d["critical_field_ohm_at_rated_speed"], "ohm"))
         rows.append(("field circuit resistance, hot", d["field_circuit_ohm"], "ohm"))
     rows.append(("fastest time constant", d["tau_min_s"] * 1e6, "us"))
     rows.append(("largest stable step (2 tau_min, Heun)", d["stable_step_us"], "us"))
