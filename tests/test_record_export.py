@@ -109,6 +109,7 @@ def test_csv_exports_match_the_record(tmp_path):
     assert tuple(got[0]) == COLS and len(got) == len(rows) + 1
     back = np.array(got[1:], dtype=float)
     np.testing.assert_allclose(back, rows, rtol=1e-5, atol=1e-12)  # %.6g: six significant digits
+    assert (tmp_path / "frames.csv").read_bytes().count(b"\r\n") == len(rows) + 1  # CRLF, as csv.writer
     ev = (tmp_path / "events.csv").read_text().splitlines()
     assert ev[0] == "time_s,kind,text" and ev[2] == "4.000000,trip,\"controller tripped, code 3\""
 

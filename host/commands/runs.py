@@ -18,7 +18,7 @@ EXAMPLE = """examples:
   dcrig runs export dcrig-demo --format comtrade --from 5.5 --to 7.5
   dcrig runs replay dcrig-demo                 # open loop: the recorded commands drive the model again
   dcrig runs replay dcrig-demo --set machine.ra_ohm=0.02 --tolerance speed_rpm=2
-  dcrig runs replay --trace site/f3-trip.csv --map site/f3-map.toml \
+  dcrig runs replay --trace site/f3-trip.csv --map site/f3-map.toml \\
       --machine configs/machines/kestrel_f3_stand.toml --converter configs/converters/kestrel_f3_dual.toml
 
 A record is read, never changed. A run killed before its end shows status `unfinished`:

@@ -119,15 +119,15 @@ def export_frames_csv(reader: RecordReader, path, columns=None, t_from_s=None, t
     idx = [reader.R[c] for c in names]
     fmt = ",".join(["%.6g"] * len(idx))
     with AtomicTextFile(path) as fh:
-        fh.write(",".join(names) + "\n")
+        fh.write(",".join(names) + "\r\n")  # CRLF as csv.writer (RFC 4180), as the runs always wrote
         for rows in reader.iter_frames(t_from_s, t_to_s):
-            np.savetxt(fh, rows[:, idx], fmt=fmt, delimiter=",")
+            np.savetxt(fh, rows[:, idx], fmt=fmt, delimiter=",", newline="\r\n")
     return Path(path)
 
 
 def export_events_csv(reader: RecordReader, path, t_from_s=None, t_to_s=None) -> Path:
     buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
+    w = csv.writer(buf)
     w.writerow(["time_s", "kind", "text"])
     for t, kind, text in reader.events():
         if (t_from_s is None or t >= t_from_s) and (t_to_s is None or t <= t_to_s):
