@@ -403,6 +403,8 @@ def load_campaign(path: str | Path) -> Campaign:
     _unknown(src, "spread", spread, ("method", "samples", "parameter"))
     method = _choice(src, "spread.method", _get(src, "spread", spread, "method", "str", "latin_hypercube"), METHODS)
     samples = _get(src, "spread", spread, "samples", "int", 0)
+    if method == "grid" and "samples" in spread:
+        raise _fail(src, "spread.samples", "is for method = 'latin_hypercube' only (a grid has its own size)", samples)
     params = [_parse_parameter(src, f"spread.parameter[{j}]", t, method)
               for j, t in enumerate(_get(src, "spread", spread, "parameter", "tables", []))]
     seen = set()
@@ -415,8 +417,6 @@ def load_campaign(path: str | Path) -> Campaign:
             raise _fail(src, "spread.samples", "must be >= 1 for latin_hypercube", samples)
         if not params:
             samples = 1
-    elif "samples" in spread:
-        raise _fail(src, "spread.samples", "is for method = 'latin_hypercube' only (a grid has its own size)", samples)
 
     execution = _get(src, "", data, "execution", "table", {})
     _unknown(src, "execution", execution, ("retries", "records"))
