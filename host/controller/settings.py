@@ -248,6 +248,22 @@ _k("trip.suppress_timeout_s", "float", 0.02, "must be in 0..1", _between(0, 1),
    "After a trip, pulses stay at the inversion end until abs(Ia) < sequencing.zero_current_A or "
    "this time has passed; then pulses block and the contactor opens.")
 
+# --- trip_classes: this controller's trip codes by fault class (scenario expectations use the
+# classes, so they never depend on one firmware's numbering) ----------------------------------
+_TRIP_CLASS_DEFAULTS = (("overcurrent", 1), ("overload", 2), ("overspeed", 3), ("field_loss", 4),
+                        ("tacho_loss", 5), ("overvoltage", 6), ("mains_loss", 7), ("mains_sync", 8),
+                        ("contactor", 9))
+
+
+def _codes(v):
+    return all(float(c).is_integer() and 0 < c < 256 for c in v)
+
+
+for _cls, _code in _TRIP_CLASS_DEFAULTS:
+    _k(f"trip_classes.{_cls}", "floats", [float(_code)], "must be whole trip codes in 1..255", _codes,
+       f"Trip codes of this controller that mean a {_cls.replace('_', ' ')} trip (the emulated "
+       f"controller's own code is {_code}); a real controller's profile lists its own.")
+
 KEYS: dict[str, Key] = {k.name: k for k in _KEYS}
 del _KEYS
 
