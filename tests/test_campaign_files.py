@@ -101,7 +101,7 @@ BAD = [
     ("records", GOOD + '\n[execution]\nrecords = "some"\n', "execution.records: expected one of"),
     ("retries", GOOD + '\n[execution]\nretries = -1\n', "execution.retries: must be within [0, 10]"),
     ("no case", GOOD.split("[[case]]")[0] + "[spread]" + GOOD.split("[spread]")[1], "case: a transient campaign needs"),
-    ("scenario kind", GOOD.replace('kind = "transient"', 'kind = "scenario"'), "campaign.kind"),
+    ("scenario kind with cases", GOOD.replace('kind = "transient"', 'kind = "scenario"'), "case: belongs to kind = 'transient'"),
 ]
 
 

@@ -117,18 +117,27 @@ class Parameter:
         return f"param:{self.key}"
 
 
+CONTROLLER_KINDS = ("emulated", "c_example")
+FIRMWARE_KEYS = ("iref_A", "kp_cdeg_per_A", "trip_A")
+
+
 @dataclass(frozen=True)
 class Controller:
-    """A controller variant: emulated (settings file) or a host-compiled firmware build."""
+    """A controller variant: the emulated controller with a settings file (and key changes),
+    or the host-compiled C example firmware from tools/fwlib with its command-line settings."""
 
     name: str
+    kind: str = "emulated"
     settings: Path | None = None
-    firmware: Path | None = None
+    settings_set: tuple[tuple[str, Any], ...] = ()
+    firmware: tuple[tuple[str, int], ...] = ()
 
     def digest(self) -> str:
-        parts = [self.name]
-        for p in (self.settings, self.firmware):
-            parts.append(file_digest(p) if p is not None else "-")
+        parts = [self.name, self.kind, file_digest(self.settings) if self.settings is not None else "-",
+                 json.dumps(self.settings_set), json.dumps(self.firmware)]
+        if self.kind == "c_example":
+            fw = Path(__file__).resolve().parents[2] / "tools" / "fwlib"
+            parts += [file_digest(fw / n) for n in ("example_controller.c", "dcrig_link.c", "dcrig_link.h")]
         return ":".join(parts)
 
 
@@ -158,10 +167,11 @@ class Case:
     ramps: tuple[str, ...] = ()
     limits: tuple[Limit, ...] = ()
     path: Path | None = None  # scenario kind: the scenario file
+    depends: tuple[Path, ...] = ()  # scenario kind: the plant files it names (their content counts)
 
     def digest(self) -> str:
         if self.path is not None:
-            return f"{self.name}:{file_digest(self.path)}"
+            return ":".join([self.name] + [file_digest(p) for p in (self.path,) + self.depends])
         body = json.dumps([self.t_end_s, self.sample_s, self.inputs, self.changes, self.ramps,
                            [(lim.figure, lim.min, lim.max) for lim in self.limits]], sort_keys=True)
         return f"{self.name}:{hashlib.sha256(body.encode()).hexdigest()[:16]}"
@@ -213,10 +223,12 @@ class Campaign:
     retries: int = 2
     records: str = "all"
     description: str = ""
-    nominal: dict[str, float] = field(default_factory=dict)
+    nominal: dict[str, dict[str, float]] = field(default_factory=dict)  # case name -> key -> value
 
-    def points(self) -> np.ndarray:
-        """The parameter points (absolute values), shape (n_points, n_parameters)."""
+    def points(self, case: str | None = None) -> np.ndarray:
+        """The parameter points, shape (n_points, n_parameters): absolute values for `case`
+        (relative spreads scale that case's nominal plant values). Every controller and every
+        case sees the same point i, so variants are compared on the same plants."""
         if not self.parameters:
             return np.zeros((1, 0))
         if self.method == "grid":
@@ -225,14 +237,14 @@ class Campaign:
             u = latin_hypercube(self.samples, len(self.parameters), self.seed)
             pts = np.column_stack([p.dist.quantile(u[:, j]) for j, p in enumerate(self.parameters)])
         for j, p in enumerate(self.parameters):
-            if p.relative:
-                pts[:, j] = pts[:, j] * self.nominal[p.key]
+            if p.relative and case is not None:
+                pts[:, j] = pts[:, j] * self.nominal[case][p.key]
             if p.integer:
                 pts[:, j] = np.round(pts[:, j])
         return pts
 
     def runs(self) -> list[RunSpec]:
-        pts = self.points()
+        pts_of = {c.name: self.points(c.name) for c in self.cases}
         controllers = self.controllers or [None]
         ctrl_digest = {c.name: c.digest() for c in self.controllers}
         case_digest = {c.name: c.digest() for c in self.cases}
@@ -240,7 +252,7 @@ class Campaign:
         out = []
         for ctrl in controllers:
             for case in self.cases:
-                for i, row in enumerate(pts):
+                for i, row in enumerate(pts_of[case.name]):
                     params = tuple((p.key, int(v) if p.integer else float(v)) for p, v in zip(self.parameters, row))
                     ident = {
                         "campaign": self.name, "kind": self.kind,
@@ -387,11 +399,11 @@ def load_campaign(path: str | Path) -> Campaign:
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as err:
         raise ConfigError(f"{src}: (file): not valid TOML ({err})") from err
     base = path.resolve().parent
-    _unknown(src, "", data, ("campaign", "plant", "case", "scenarios", "controller", "spread", "execution"))
+    _unknown(src, "", data, ("campaign", "plant", "case", "controller", "spread", "execution"))
     if "campaign" not in data:
         raise ConfigError(f"{src}: campaign: required table is missing (is this a campaign file?)")
     head = _get(src, "", data, "campaign", "table")
-    _unknown(src, "campaign", head, ("name", "kind", "seed", "description"))
+    _unknown(src, "campaign", head, ("name", "kind", "seed", "description", "scenarios"))
     name = _get(src, "campaign", head, "name", "str", required=True)
     kind = _choice(src, "campaign.kind", _get(src, "campaign", head, "kind", "str", required=True), KINDS)
     seed = _get(src, "campaign", head, "seed", "int", 0)
@@ -428,22 +440,37 @@ def load_campaign(path: str | Path) -> Campaign:
     controllers = []
     for j, t in enumerate(_get(src, "", data, "controller", "tables", [])):
         w = f"controller[{j}]"
-        _unknown(src, w, t, ("name", "settings", "firmware"))
+        _unknown(src, w, t, ("name", "kind", "settings", "set") + FIRMWARE_KEYS)
         cname = _get(src, w, t, "name", "str", required=True)
+        ckind = _choice(src, f"{w}.kind", _get(src, w, t, "kind", "str", "emulated"), CONTROLLER_KINDS)
         settings = _get(src, w, t, "settings", "str")
-        firmware = _get(src, w, t, "firmware", "str")
-        if (settings is None) == (firmware is None):
-            raise ConfigError(f"{src}: {w}: give exactly one of settings (emulated controller) or firmware "
-                              f"(host-compiled build)")
+        sset = _get(src, w, t, "set", "table", {})
+        if ckind == "emulated" and settings is None:
+            raise ConfigError(f"{src}: {w}.settings: required for kind 'emulated' (the controller's settings file)")
+        if ckind != "emulated" and (settings is not None or sset):
+            raise ConfigError(f"{src}: {w}.settings: only for kind 'emulated', got kind {ckind!r}")
+        fw = {}
+        for k in FIRMWARE_KEYS:
+            if k in t:
+                if ckind != "c_example":
+                    raise _fail(src, f"{w}.{k}", "only for kind 'c_example'", t[k])
+                v = _get(src, w, t, k, "int")
+                if not 0 < v < 100000:
+                    raise _fail(src, f"{w}.{k}", "must be a whole number in 1..99999", v)
+                fw[k] = v
         sp = _path(src, base, f"{w}.settings", settings) if settings else None
-        fp = _path(src, base, f"{w}.firmware", firmware) if firmware else None
         if sp is not None:
             from ..controller.settings import load_settings
 
-            load_settings(sp)
+            s_ = load_settings(sp)
+            if sset:
+                try:
+                    s_.replace(sset)
+                except ConfigError as err:
+                    raise ConfigError(f"{src}: {w}.set: {str(err).split(': ', 1)[-1]}") from err
         if any(c.name == cname for c in controllers):
             raise _fail(src, f"{w}.name", "is used twice", cname)
-        controllers.append(Controller(cname, sp, fp))
+        controllers.append(Controller(cname, ckind, sp, tuple(sorted(sset.items())), tuple(sorted(fw.items()))))
 
     machine = converter = None
     fixed: list[str] = []
@@ -452,8 +479,9 @@ def load_campaign(path: str | Path) -> Campaign:
         if controllers:
             raise ConfigError(f"{src}: controller: a transient campaign runs the plant open loop; "
                               f"controllers belong to kind = 'scenario'")
-        if "scenarios" in data:
-            raise ConfigError(f"{src}: scenarios: belongs to kind = 'scenario'; a transient campaign has [[case]]")
+        if "scenarios" in head:
+            raise ConfigError(f"{src}: campaign.scenarios: belongs to kind = 'scenario'; a transient campaign "
+                              f"has [[case]] tables")
         plant = _get(src, "", data, "plant", "table", required=True)
         _unknown(src, "plant", plant, ("machine", "converter", "set"))
         machine = _path(src, base, "plant.machine", _get(src, "plant", plant, "machine", "str", required=True))
@@ -470,7 +498,7 @@ def load_campaign(path: str | Path) -> Campaign:
     else:
         from .scenario_kind import parse_scenarios
 
-        cases = parse_scenarios(src, base, data)
+        cases = parse_scenarios(src, base, data, head)
         if not controllers:
             raise ConfigError(f"{src}: controller: a scenario campaign needs at least one [[controller]]")
 
@@ -491,24 +519,33 @@ def _check_plant(camp: Campaign, src: str) -> None:
         return
     from .transient import load_plant
 
+    nominal = {}
     if any(p.relative for p in camp.parameters):
         plant = load_plant(camp.machine, camp.converter, camp.fixed_overrides, src)
         for p in camp.parameters:
             if p.relative:
-                cfg = plant.machine if p.config == "machine" else plant.converter
-                if cfg is None:
-                    raise ConfigError(f"{src}: spread: {p.key}: a converter key needs plant.converter")
-                nominal = cfg.values.get(p.key)
-                if not isinstance(nominal, (int, float)):
-                    raise ConfigError(f"{src}: spread: {p.key}: relative = true needs a nominal value in the "
-                                      f"plant config, got {nominal!r}")
-                camp.nominal[p.key] = float(nominal)
-    pts = camp.points()
+                nominal[p.key] = nominal_value(plant, p, src, "plant")
+    camp.nominal = {c.name: nominal for c in camp.cases}
+    pts = camp.points(camp.cases[0].name)
     for i, row in enumerate(pts):
         over = list(camp.fixed_overrides) + [f"{p.key}={_toml_number(v)}" for p, v in zip(camp.parameters, row)]
         try:
             load_plant(camp.machine, camp.converter, over, src)
         except ConfigError as err:
-            raise ConfigError(f"{src}: spread: parameter point {i} "
-                              f"({', '.join(f'{p.key}={v:.6g}' for p, v in zip(camp.parameters, row))}) "
-                              f"breaks a plant rule: {err}") from err
+            raise point_error(src, camp, i, row, err) from err
+
+
+def nominal_value(plant, p: Parameter, src: str, where: str) -> float:
+    cfg = plant.machine if p.config == "machine" else plant.converter
+    if cfg is None:
+        raise ConfigError(f"{src}: spread: {p.key}: a converter key, but {where} has no converter")
+    nominal = cfg.values.get(p.key)
+    if isinstance(nominal, bool) or not isinstance(nominal, (int, float)):
+        raise ConfigError(f"{src}: spread: {p.key}: relative = true needs a nominal value in the "
+                          f"plant config of {where}, got {nominal!r}")
+    return float(nominal)
+
+
+def point_error(src: str, camp: Campaign, i: int, row, err: Exception) -> ConfigError:
+    vals = ", ".join(f"{p.key}={v:.6g}" for p, v in zip(camp.parameters, row))
+    return ConfigError(f"{src}: spread: parameter point {i} ({vals}) breaks a plant rule: {err}")
