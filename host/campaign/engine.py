@@ -171,15 +171,16 @@ def make_client(cluster: str | None, workers: int | None):
 
 def run_campaign(camp, out_dir, *, cluster: str | None = None, workers: int | None = None,
                  resume: bool = False, progress: bool = True, client=None, out=None,
-                 flush_every_s: float = 1.0) -> Outcome:
+                 flush_every_s: float = 1.0, runs=None) -> Outcome:
     """Run every run of `camp` not yet finished in out_dir's table; return the outcome.
 
     `client`: an existing distributed.Client (tests, benchmarks); otherwise one is made from
     `cluster` / `workers` and closed at the end. Ctrl-C flushes the table and re-raises.
+    `runs`: a subset of camp.runs() (benchmarks); default all.
     """
     out = out if out is not None else sys.stderr
     out_dir = Path(out_dir).resolve()
-    runs = camp.runs()
+    runs = camp.runs() if runs is None else list(runs)
     table = _check_out_dir(out_dir, resume, runs)
     table.flush_every_s = flush_every_s
     done_ids = table.finished_ids()
