@@ -81,7 +81,7 @@ high = 100.0
 def client():
     from distributed import Client, LocalCluster
 
-    cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None,
+    cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0",
                            silence_logs=50)
     c = Client(cluster)
     yield c
@@ -242,7 +242,7 @@ def test_a_killed_worker_has_its_run_done_elsewhere(tmp_path):
     p = tmp_path / "slow.toml"
     p.write_text(SLOW)
     camp = load_campaign(p)
-    cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None,
+    cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0",
                            silence_logs=50)
     client = Client(cluster)
     try:
@@ -274,3 +274,105 @@ def test_a_killed_worker_has_its_run_done_elsewhere(tmp_path):
     finally:
         client.close()
         cluster.close()
+
+
+def _free_port() -> int:
+    import socket
+
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def test_cluster_option_runs_on_a_separately_started_scheduler(campaign_file, finished, tmp_path, capsys):
+    # the README's commands: `dask scheduler` and `dask worker` as their own processes,
+    # on loopback, and `dcrig campaign --cluster tcp://...`
+    import subprocess
+    import sys
+
+    from host.cli import main
+
+    port = _free_port()
+    addr = f"tcp://127.0.0.1:{port}"
+    env = dict(os.environ, PYTHONPATH=str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    procs = [subprocess.Popen([sys.executable, "-m", "distributed.cli.dask_scheduler", "--host", "127.0.0.1",
+                               "--port", str(port), "--no-dashboard"], env=env,
+                              stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)]
+    try:
+        procs.append(subprocess.Popen([sys.executable, "-m", "distributed.cli.dask_worker", addr, "--nworkers", "1",
+                                       "--nthreads", "1", "--no-dashboard"], env=env,
+                                      stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL))
+        out = tmp_path / "on-cluster"
+        rc = main(["campaign", str(campaign_file), "--cluster", addr, "--out", str(out), "--no-progress"])
+        assert rc == 1  # the constructed failures
+        rows = {r["run_id"]: r for r in read_rows(out / "results.parquet")}
+        _, _, local = finished
+        assert len(rows) == 16
+        for r in local.rows:  # the same table as on the local cluster
+            assert rows[r["run_id"]][f"figure:armature_current_A@{T_JUDGE}"] == r[f"figure:armature_current_A@{T_JUDGE}"]
+        assert (out / "report.html").is_file() and (out / "junit.xml").is_file()
+    finally:
+        for p in reversed(procs):
+            p.terminate()
+        for p in reversed(procs):
+            try:
+                p.wait(timeout=20)
+            except subprocess.TimeoutExpired:
+                p.kill()
+                p.wait()
+
+
+def test_cluster_address_unreachable_is_one_line(campaign_file, tmp_path, capsys, monkeypatch):
+    import host.campaign.engine as engine
+    from host.cli import main
+
+    monkeypatch.setattr(engine, "CONNECT_TIMEOUT_S", 3.0)
+    rc = main(["campaign", str(campaign_file), "--cluster", f"tcp://127.0.0.1:{_free_port()}",
+               "--out", str(tmp_path / "x"), "--no-progress"])
+    err = capsys.readouterr().err.strip()
+    assert rc == 2 and err.startswith("error: --cluster: tcp://127.0.0.1:") and len(err.splitlines()) == 1
+
+
+def test_ctrl_c_keeps_finished_runs_and_resume_does_only_the_rest(tmp_path):
+    # the command interrupted for real (SIGINT, as Ctrl-C) after its first finished run
+    import subprocess
+    import sys
+
+    p = tmp_path / "slow.toml"
+    p.write_text(SLOW.replace("levels = [0.0007, 0.0009, 0.0011, 0.0013]",
+                              "levels = [0.0007, 0.0008, 0.0009, 0.0010, 0.0011, 0.0012]"))
+    out = tmp_path / "out"
+    env = dict(os.environ, PYTHONPATH=str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    proc = subprocess.Popen([sys.executable, "-m", "host.cli", "campaign", str(p), "--workers", "1",
+                             "--out", str(out), "--no-progress"], env=env,
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        deadline = time.monotonic() + 240.0
+        while time.monotonic() < deadline and not (out / "results.parquet").exists():
+            assert proc.poll() is None, proc.communicate()
+            time.sleep(0.1)
+        assert (out / "results.parquet").exists(), "no run finished within 240 s"
+        proc.send_signal(signal.SIGINT)
+        _, err = proc.communicate(timeout=120)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    assert proc.returncode == 130, err
+    assert "continue with --resume" in err
+    kept = read_rows(out / "results.parquet")
+    assert 1 <= len(kept) < 6
+    camp = load_campaign(p)
+    from distributed import Client, LocalCluster
+
+    cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0",
+                           silence_logs=50)
+    client = Client(cluster)
+    try:
+        again = run_campaign(camp, out, client=client, progress=False, resume=True)
+    finally:
+        client.close()
+        cluster.close()
+    done_before = sum(r["status"] in ("pass", "fail") for r in kept)
+    assert again.skipped == done_before and again.ran == 6 - done_before
+    assert len(again.rows) == 6 and all(r["status"] == "pass" for r in again.rows)

@@ -42,10 +42,14 @@ def load_avg() -> str:
         return "n/a"
 
 
+def _noop(i):
+    return i
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    ap.add_argument("--campaign", default=str(ROOT / "configs" / "campaigns" / "kestrel_f3_tolerance_ci.toml"))
-    ap.add_argument("--runs", type=int, default=None, help="use the first N runs (default: all)")
+    ap.add_argument("--campaign", default=str(ROOT / "configs" / "campaigns" / "kestrel_f3_tolerance.toml"))
+    ap.add_argument("--runs", type=int, default=48, help="use N runs spread over the campaign (default 48)")
     ap.add_argument("--quick", action="store_true", help="4 runs, 200 no-op tasks")
     args = ap.parse_args(argv)
 
@@ -58,8 +62,8 @@ def main(argv=None) -> int:
     camp = load_campaign(args.campaign)
     camp.records = "none"
     runs = camp.runs()
-    n = 4 if args.quick else (args.runs or len(runs))
-    runs = runs[:n]
+    n = min(len(runs), 4 if args.quick else args.runs)
+    runs = [runs[round(i * len(runs) / n)] for i in range(n)]  # every scenario and controller
     cores = os.cpu_count() or 1
     n_noop = 200 if args.quick else 2000
 
@@ -80,12 +84,12 @@ def main(argv=None) -> int:
         execute_run(spec, None, "none")
     plain_s = time.perf_counter() - t0
     per_run_s = plain_s / n
-    rows.append(("plain loop, this process", 1, "-", plain_s, n / plain_s * 60, "-"))
+    rows.append(("plain loop, this process", 1, "-", plain_s, n / plain_s * 60, "-", f"{per_run_s * 1e3:.0f}", "-"))
 
     noop = {}
     for workers in sorted({1, cores}):
         t_start = time.perf_counter()
-        cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=None,
+        cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=":0",
                                silence_logs=logging.ERROR)
         client = Client(cluster)
         startup_s = time.perf_counter() - t_start
@@ -98,11 +102,14 @@ def main(argv=None) -> int:
             # engine overhead per run: the wall time beyond the plain loop's work divided over
             # the workers, per run (negative would mean the workers ran faster than this process)
             overhead_ms = (wall - plain_s / workers) / n * workers * 1e3
+            inside_ms = sum(r["wall_s"] for r in o.rows) / n * 1e3
+            outside_ms = wall * workers / n * 1e3 - inside_ms
             rows.append((f"Dask LocalCluster, {workers} worker{'s' if workers > 1 else ''}", workers,
-                         f"{startup_s:.1f}", wall, n / wall * 60, f"{overhead_ms:+.1f}"))
+                         f"{startup_s:.1f}", wall, n / wall * 60, f"{overhead_ms:+.1f}",
+                         f"{inside_ms:.0f}", f"{outside_ms:+.0f}"))
             # the scheduler's own cost per task: no-op tasks, submitted and gathered
             t0 = time.perf_counter()
-            futs = client.map(lambda i: i, range(n_noop), pure=False)
+            futs = client.map(_noop, range(n_noop), pure=False)
             client.gather(futs)
             noop[workers] = (time.perf_counter() - t0) / n_noop
         finally:
@@ -114,16 +121,17 @@ def main(argv=None) -> int:
     print(f"dcrig campaign speed - {cpu_name()}, {cores} logical CPUs; Python {platform.python_version()}; "
           f"load average before {la_before}, after {la_after}")
     print(f"campaign {camp.name}: {n} runs ({camp.kind}); records off; single runs (the machine may be shared)\n")
-    print("| execution | workers | cluster start s | wall s | runs/min | engine overhead per run, ms |")
-    print("|---|---|---|---|---|---|")
-    for name, w, st, wall, rpm, ov in rows:
-        print(f"| {name} | {w} | {st} | {wall:.2f} | {rpm:.1f} | {ov} |")
+    print("| execution | workers | cluster start s | wall s | runs/min | worker-time per run beyond the plain loop, ms "
+          "| time inside a run, ms | worker-time per run outside runs, ms |")
+    print("|---|---|---|---|---|---|---|---|")
+    for name, w, st, wall, rpm, ov, inside, outside in rows:
+        print(f"| {name} | {w} | {st} | {wall:.2f} | {rpm:.1f} | {ov} | {inside} | {outside} |")
     print()
     print("| quantity | value |")
     print("|---|---|")
     print(f"| cost of one run, plain loop | {per_run_s * 1e3:.0f} ms |")
     for w, t in noop.items():
-        print(f"| scheduler round trip per no-op task, {w} worker(s), {n_noop} tasks | {t * 1e3:.2f} ms |")
+        print(f"| scheduler cost per no-op task ({n_noop} submitted at once, gathered), {w} worker(s) | {t * 1e3:.2f} ms |")
     t_task = min(noop.values())
     print(f"| runs per second one scheduler can hand out (1 / no-op cost) | {1 / t_task:.0f} |")
     print(f"| workers one scheduler keeps busy at this run cost (run cost / no-op cost) | {per_run_s / t_task:.0f} |")

@@ -34,6 +34,7 @@ import numpy as np
 from ..errors import ConfigError, DcrigError
 from .table import FINISHED, RESULTS_FILE, ResultsTable
 
+CONNECT_TIMEOUT_S = 20.0  # --cluster: how long to wait for the scheduler to answer
 # what a worker keeps between runs: set by the warm-up plugin
 _WORKER_STATE: dict = {}
 
@@ -64,7 +65,16 @@ class KernelWarmup(WorkerPlugin):
         self.p, self.x, self.u = p, x, u
 
     def setup(self, worker):
+        import importlib
+
         took = warm_kernel_arrays(self.p, self.x, self.u)
+        # the run modules too, so the first run of a worker pays no imports
+        for mod in ("host.campaign.transient", "host.sim", "host.scenario.run", "host.verdict.judge",
+                    "host.controller.drive", "host.record"):
+            try:
+                importlib.import_module(mod)
+            except ModuleNotFoundError:
+                pass
         _WORKER_STATE["kernel_warm_s"] = took
         _WORKER_STATE["pid"] = os.getpid()
         _WORKER_STATE["runs"] = 0
@@ -160,11 +170,11 @@ def make_client(cluster: str | None, workers: int | None):
         raise DcrigError("campaign: needs dask and distributed: pip install 'dcrig[campaign]'") from err
     if cluster:
         try:
-            return Client(cluster, timeout="20s"), None
+            return Client(cluster, timeout=f"{CONNECT_TIMEOUT_S}s"), None
         except (OSError, TimeoutError) as err:
             raise DcrigError(f"--cluster: {cluster}: cannot reach the scheduler ({err})") from err
     n = workers or os.cpu_count() or 1
-    lc = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None,
+    lc = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address=":0",
                       silence_logs=logging.ERROR)
     return Client(lc), lc
 
