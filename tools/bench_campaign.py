@@ -90,7 +90,7 @@ def main(argv=None) -> int:
     for workers in sorted({1, cores}):
         t_start = time.perf_counter()
         cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=":0",
-                               silence_logs=logging.ERROR)
+                               silence_logs=logging.CRITICAL)
         client = Client(cluster)
         startup_s = time.perf_counter() - t_start
         out = Path(tempfile.mkdtemp(prefix="dcrig-bench-"))

@@ -175,7 +175,7 @@ def make_client(cluster: str | None, workers: int | None):
             raise DcrigError(f"--cluster: {cluster}: cannot reach the scheduler ({err})") from err
     n = workers or os.cpu_count() or 1
     lc = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address=":0",
-                      silence_logs=logging.ERROR)
+                      silence_logs=logging.CRITICAL)  # shutdown chatter; run errors come back as results
     return Client(lc), lc
 
 
