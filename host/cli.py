@@ -13,7 +13,7 @@ import sys
 from .errors import DcrigError
 
 # one module per subcommand under host.commands, each with add_subparser(subparsers)
-COMMANDS = ("check", "op", "sim", "demo", "serve", "controller", "campaign")
+COMMANDS = ("check", "op", "sim", "demo", "serve", "controller", "scenario", "suite", "campaign")
 
 SAFETY = (
     "CAUTION: dcrig models a machine; it does not make a real one safe. Energise real drives only\n"

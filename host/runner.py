@@ -228,7 +228,22 @@ def summary_lines(loop: HostLoop, timeline: Timeline, wall_s: float) -> list[str
     lines.append(f"model flags seen: {', '.join(flags) if flags else 'none'}")
     trips = [e for e in loop.events if e[1] == "trip"]
     lines.append("controller trips: " + ("; ".join(f"{e[2]} at {e[0]:.3f} s" for e in trips) if trips else "none"))
+    lines.extend(harm_lines(loop))
     return lines
+
+
+def harm_lines(loop: HostLoop) -> list[str]:
+    """The machine-harm checks (host.verdict.harm) on this run's frames: on in every closed-loop
+    run, whatever the controller reported."""
+    from .scenario.run import harm_limits
+    from .verdict import harm_checks
+
+    meta = {"frame_period_s": loop.frame_period_us * 1e-6, "harm": harm_limits(loop.plant)}
+    flagged = [h for h in harm_checks(loop.rows(), REC_COLUMNS, meta) if h.flagged]
+    if not flagged:
+        return ["machine-harm checks: none flagged (commutation limit, overspeed, field loss while "
+                "energised, winding temperature, armature overvoltage, current rise rate)"]
+    return [f"machine-harm checks: {len(flagged)} FLAGGED"] + [f"  HARM {h.check}: {h.text}" for h in flagged]
 
 
 def send_bye(session) -> None:

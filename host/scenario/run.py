@@ -75,7 +75,7 @@ def build_plant(scn: Scenario):
     return pack(machine, converter)
 
 
-def harm_limits(plant, scn: Scenario) -> dict:
+def harm_limits(plant, scn: Scenario | None = None) -> dict:
     """The machine's own limits for the harm checks: from its config, overridden by [harm]."""
     v = plant.machine.values
     i_rated = v["machine.rated_current_A"]
@@ -103,8 +103,9 @@ def harm_limits(plant, scn: Scenario) -> dict:
         "rated_field_current_A": v.get("machine.rated_field_current_A") or 0.0,
         "connection": v["machine.connection"],
     }
-    lim.update(scn.harm)
-    lim["accept"] = list(scn.harm_accept)
+    if scn is not None:
+        lim.update(scn.harm)
+    lim["accept"] = list(scn.harm_accept) if scn is not None else []
     return lim
 
 
