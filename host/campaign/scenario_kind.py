@@ -15,6 +15,7 @@ campaign runs emulated or host-compiled controllers only.
 from __future__ import annotations
 
 import dataclasses
+import fnmatch
 import glob
 import math
 import shutil
@@ -34,13 +35,23 @@ def parse_scenarios(src, base: Path, data: dict, head: dict):
     if "case" in data or "plant" in data:
         raise ConfigError(f"{src}: {'case' if 'case' in data else 'plant'}: belongs to kind = 'transient'; "
                           f"a scenario campaign names scenario files (scenarios = [...])")
-    items = head.get("scenarios")
-    if items is None:
-        raise ConfigError(f"{src}: campaign.scenarios: required key is missing (a list of scenario files or patterns)")
-    if not isinstance(items, list) or not items or not all(isinstance(s, str) for s in items):
-        raise ConfigError(f"{src}: campaign.scenarios: must be a non-empty list of file names or patterns, "
-                          f"got {items!r}")
+    items = head.get("scenarios", [])
+    suite = head.get("suite")
+    if suite is None and not items:
+        raise ConfigError(f"{src}: campaign.scenarios: a scenario campaign needs scenarios = [...] or suite = FILE")
+    if not isinstance(items, list) or not all(isinstance(s, str) for s in items):
+        raise ConfigError(f"{src}: campaign.scenarios: must be a list of file names or patterns, got {items!r}")
     paths: list[Path] = []
+    if suite is not None:
+        if not isinstance(suite, str) or not (base / suite).is_file():
+            raise ConfigError(f"{src}: campaign.suite: file not found, got {suite!r}")
+        from ..suite import load_suite
+
+        for run in load_suite(base / suite).runs:
+            # a must-fail run tests the verdict against a deliberately wrong controller; a
+            # campaign replaces the controller, so it has nothing to say there
+            if not run.must_fail:
+                paths.append(Path(run.scenario.path).resolve())
     for text in items:
         pattern = str(base / text)
         found = sorted(Path(p).resolve() for p in glob.glob(pattern)) if any(c in text for c in "*?[") else \
@@ -48,9 +59,18 @@ def parse_scenarios(src, base: Path, data: dict, head: dict):
         if not found:
             raise ConfigError(f"{src}: campaign.scenarios: no scenario file matches, got {text!r}")
         paths += [p for p in found if p not in paths]
+    for key in ("select", "exclude"):
+        pats = head.get(key, [])
+        if not isinstance(pats, list) or not all(isinstance(s, str) for s in pats):
+            raise ConfigError(f"{src}: campaign.{key}: must be a list of scenario-name patterns, got {pats!r}")
+    select, exclude = head.get("select", []), head.get("exclude", [])
     cases = []
     for p in paths:
         scn = load_scenario(p)
+        if select and not any(fnmatch.fnmatchcase(scn.name, pat) for pat in select):
+            continue
+        if any(fnmatch.fnmatchcase(scn.name, pat) for pat in exclude):
+            continue
         if scn.controller_kind == "link":
             raise ConfigError(f"{src}: campaign.scenarios: {p.name} runs an external controller on a link; a campaign "
                               f"runs emulated or host-compiled controllers only, got {str(p)!r}")
@@ -58,6 +78,9 @@ def parse_scenarios(src, base: Path, data: dict, head: dict):
             raise ConfigError(f"{src}: campaign.scenarios: two scenarios are named {scn.name!r}, got {str(p)!r}")
         deps = tuple(x for x in (scn.machine, scn.converter) if x is not None)
         cases.append(Case(scn.name, path=p, depends=deps))
+    if not cases:
+        raise ConfigError(f"{src}: campaign.select: no scenario is left to run, got select={select!r}, "
+                          f"exclude={exclude!r}")
     return cases
 
 

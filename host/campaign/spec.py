@@ -403,7 +403,8 @@ def load_campaign(path: str | Path) -> Campaign:
     if "campaign" not in data:
         raise ConfigError(f"{src}: campaign: required table is missing (is this a campaign file?)")
     head = _get(src, "", data, "campaign", "table")
-    _unknown(src, "campaign", head, ("name", "kind", "seed", "description", "scenarios"))
+    _unknown(src, "campaign", head, ("name", "kind", "seed", "description", "scenarios", "suite", "select",
+                                      "exclude"))
     name = _get(src, "campaign", head, "name", "str", required=True)
     kind = _choice(src, "campaign.kind", _get(src, "campaign", head, "kind", "str", required=True), KINDS)
     seed = _get(src, "campaign", head, "seed", "int", 0)
@@ -479,9 +480,10 @@ def load_campaign(path: str | Path) -> Campaign:
         if controllers:
             raise ConfigError(f"{src}: controller: a transient campaign runs the plant open loop; "
                               f"controllers belong to kind = 'scenario'")
-        if "scenarios" in head:
-            raise ConfigError(f"{src}: campaign.scenarios: belongs to kind = 'scenario'; a transient campaign "
-                              f"has [[case]] tables")
+        for k in ("scenarios", "suite", "select", "exclude"):
+            if k in head:
+                raise ConfigError(f"{src}: campaign.{k}: belongs to kind = 'scenario'; a transient campaign "
+                                  f"has [[case]] tables")
         plant = _get(src, "", data, "plant", "table", required=True)
         _unknown(src, "plant", plant, ("machine", "converter", "set"))
         machine = _path(src, base, "plant.machine", _get(src, "plant", plant, "machine", "str", required=True))
