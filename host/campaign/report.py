@@ -141,6 +141,7 @@ def _plots(rows, groups, params) -> list[tuple[str, str]]:
 
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
+    from matplotlib.ticker import MaxNLocator
 
     out = []
     scenarios = sorted({g.scenario for g in groups})
@@ -161,10 +162,13 @@ def _plots(rows, groups, params) -> list[tuple[str, str]]:
                 xs, ms, st = zip(*pts)
                 col = f"C{k % 10}"
                 ok = [s == "pass" for s in st]
-                ax.scatter([x for x, o in zip(xs, ok) if o], [m for m, o in zip(ms, ok) if o], s=12,
-                           color=col, label=f"{g.controller} pass")
-                ax.scatter([x for x, o in zip(xs, ok) if not o], [m for m, o in zip(ms, ok) if not o], s=22,
-                           color=col, marker="x", label=f"{g.controller} fail")
+                # a shape per controller, hollow: builds with the same result stay visible
+                ax.scatter([x for x, o in zip(xs, ok) if o], [m for m, o in zip(ms, ok) if o], s=30 - 8 * (k % 3),
+                           marker="osD^v"[k % 5], facecolors="none", edgecolors=col, label=f"{g.controller} pass")
+                ax.scatter([x for x, o in zip(xs, ok) if not o], [m for m, o in zip(ms, ok) if not o], s=40,
+                           color=col, marker="x+1234"[k % 6], label=f"{g.controller} fail")
+            ax.xaxis.set_major_locator(MaxNLocator(4))
+            ax.ticklabel_format(axis="x", style="sci", scilimits=(-2, 4))
             ax.axhline(0.0, color="k", lw=0.8)
             ax.set_xlabel(pc[len("param:"):])
             ax.set_ylabel("margin (fraction of bound)")

@@ -60,6 +60,7 @@ def _do_campaign(args):
         print(f"interrupted: finished runs are in {out_dir / 'results.parquet'}; continue with --resume",
               file=sys.stderr)
         raise
+    print("writing the report ...", flush=True)
     write_html(out_dir / "report.html", outcome.rows, name=camp.name, description=camp.description,
                table=str(outcome.table_path))
     write_junit(out_dir / "junit.xml", outcome.rows, name=camp.name)
