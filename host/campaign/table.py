@@ -8,10 +8,11 @@ only through an extension it downloads at run time, and its columns would have t
 by ALTER TABLE as new figures appear.
 
 Durability: the table is rewritten whole to a temporary file, fsync'd and renamed over the
-old one (an atomic replace on POSIX), at most every `flush_every_s` and always at the end
-or on interruption, so the file on disk is always a complete table. A hard crash of the
-driver loses at most the runs finished in the last flush interval; `--resume` runs them
-again (the run id is the key). A 10,000-row table rewrites in tens of milliseconds.
+old one (an atomic replace on POSIX), at most every `flush_every_s` (1 s) or every 20 rewrite
+times when that is longer, and always at the end or on interruption, so the file on disk is
+always a complete table. A hard crash of the driver loses at most the runs finished in the
+last flush interval; `--resume` runs them again (the run id is the key). Measured on the
+project's shared 2-vCPU machine: 240 rows of 86 columns rewrite in 60 ms, 10,000 in 1 s.
 
 Columns: fixed ones first (FIXED_COLUMNS), then `param:KEY`, `verdict:NAME`, `margin:NAME`,
 `figure:NAME` in sorted order. Imports nothing of the project but the error types.
@@ -95,6 +96,7 @@ class ResultsTable:
         self.rows: dict[str, dict] = {}
         self._dirty = False
         self._last_flush = time.monotonic()
+        self._write_s = 0.0  # how long the last rewrite took
         if self.path.exists():
             for r in read_rows(self.path):
                 self.rows[r["run_id"]] = r
@@ -105,12 +107,16 @@ class ResultsTable:
     def add(self, row: dict) -> None:
         self.rows[row["run_id"]] = row
         self._dirty = True
-        if time.monotonic() - self._last_flush >= self.flush_every_s:
+        # at most ~5 % of the driver's time goes to rewriting: a 10,000-row table takes about
+        # a second to write on a slow machine, so it is then flushed every ~20 s
+        if time.monotonic() - self._last_flush >= max(self.flush_every_s, 20.0 * self._write_s):
             self.flush()
 
     def flush(self) -> None:
         if not self._dirty and self.path.exists():
             return
+        t0 = time.perf_counter()
         write_table(self.path, list(self.rows.values()))
+        self._write_s = time.perf_counter() - t0
         self._dirty = False
         self._last_flush = time.monotonic()
