@@ -140,3 +140,16 @@ def test_run_ids_are_stable_and_follow_what_decides_a_run(tmp_path):
     # a limit changed: another case definition
     d = [r.run_id for r in load_campaign(_write(tmp_path, text.replace("max = 3000.0", "max = 3100.0"))).runs()]
     assert not set(c) & set(d)
+
+
+def test_docs_page_documents_every_campaign_key():
+    from host.campaign.spec import FILE_KEYS
+
+    page = (ROOT / "docs" / "campaign.md").read_text()
+    for table, keys in FILE_KEYS.items():
+        for k in keys:
+            forms = (f"`{k}`", f"[{k}]", f"[[{k}]]", f"{k} =", f"[[{table}.{k}]]", f"{{ {k} =")
+            assert any(f in page for f in forms), (table, k)
+    for table in FILE_KEYS:
+        if table and "." not in table:
+            assert f"[{table}]" in page or f"[[{table}]]" in page, table

@@ -31,6 +31,21 @@ RECORDS = ("all", "failed", "none")
 _SPREAD_KEYS = {k.path: ("machine", k) for k in MACHINE_KEYS if k.kind in ("float", "int")}
 _SPREAD_KEYS.update({k.path: ("converter", k) for k in CONVERTER_KEYS if k.kind in ("float", "int")})
 MAX_RUNS = 1_000_000
+CONTROLLER_KINDS = ("emulated", "c_example")
+FIRMWARE_KEYS = ("iref_A", "kp_cdeg_per_A", "trip_A")
+# every key of a campaign file, by table ("" = top level); docs/campaign.md documents each
+# (a test keeps the two in step)
+FILE_KEYS = {
+    "": ("campaign", "plant", "case", "controller", "spread", "execution"),
+    "campaign": ("name", "kind", "seed", "description", "scenarios", "suite", "select", "exclude"),
+    "controller": ("name", "kind", "settings", "set") + FIRMWARE_KEYS,
+    "spread": ("method", "samples", "parameter"),
+    "spread.parameter": ("key", "distribution", "relative", "low", "high", "mean", "sd", "mode", "levels", "points"),
+    "execution": ("retries", "records"),
+    "plant": ("machine", "converter", "set"),
+    "case": ("name", "t_end_s", "sample_s", "inputs", "changes", "ramps", "limits"),
+    "case.limits": ("figure", "min", "max"),
+}
 
 
 def _fail(src: str, key: str, rule: str, value: Any) -> ConfigError:
@@ -115,10 +130,6 @@ class Parameter:
     @property
     def column(self) -> str:
         return f"param:{self.key}"
-
-
-CONTROLLER_KINDS = ("emulated", "c_example")
-FIRMWARE_KEYS = ("iref_A", "kp_cdeg_per_A", "trip_A")
 
 
 @dataclass(frozen=True)
@@ -281,8 +292,7 @@ def _path(src: str, base: Path, key: str, text: str) -> Path:
 
 
 def _parse_parameter(src, where, t, method) -> Parameter:
-    _unknown(src, where, t, ("key", "distribution", "relative", "low", "high", "mean", "sd", "mode",
-                             "levels", "points"))
+    _unknown(src, where, t, FILE_KEYS["spread.parameter"])
     key = _get(src, where, t, "key", "str", required=True)
     if key not in _SPREAD_KEYS:
         pool = list(_SPREAD_KEYS)
@@ -339,7 +349,7 @@ def _parse_parameter(src, where, t, method) -> Parameter:
 
 
 def _parse_case(src, where, t) -> Case:
-    _unknown(src, where, t, ("name", "t_end_s", "sample_s", "inputs", "changes", "ramps", "limits"))
+    _unknown(src, where, t, FILE_KEYS["case"])
     name = _get(src, where, t, "name", "str", required=True)
     t_end = _get(src, where, t, "t_end_s", "float", required=True)
     if not 0 < t_end <= 600:
@@ -367,7 +377,7 @@ def _parse_case(src, where, t) -> Case:
     limits = []
     for j, lt in enumerate(_get(src, where, t, "limits", "tables", [])):
         lw = f"{where}.limits[{j}]"
-        _unknown(src, lw, lt, ("figure", "min", "max"))
+        _unknown(src, lw, lt, FILE_KEYS["case.limits"])
         fig = _get(src, lw, lt, "figure", "str", required=True)
         from .transient import figure_known
 
@@ -399,12 +409,11 @@ def load_campaign(path: str | Path) -> Campaign:
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as err:
         raise ConfigError(f"{src}: (file): not valid TOML ({err})") from err
     base = path.resolve().parent
-    _unknown(src, "", data, ("campaign", "plant", "case", "controller", "spread", "execution"))
+    _unknown(src, "", data, FILE_KEYS[""])
     if "campaign" not in data:
         raise ConfigError(f"{src}: campaign: required table is missing (is this a campaign file?)")
     head = _get(src, "", data, "campaign", "table")
-    _unknown(src, "campaign", head, ("name", "kind", "seed", "description", "scenarios", "suite", "select",
-                                      "exclude"))
+    _unknown(src, "campaign", head, FILE_KEYS["campaign"])
     name = _get(src, "campaign", head, "name", "str", required=True)
     kind = _choice(src, "campaign.kind", _get(src, "campaign", head, "kind", "str", required=True), KINDS)
     seed = _get(src, "campaign", head, "seed", "int", 0)
@@ -413,7 +422,7 @@ def load_campaign(path: str | Path) -> Campaign:
     description = _get(src, "campaign", head, "description", "str", "")
 
     spread = _get(src, "", data, "spread", "table", {})
-    _unknown(src, "spread", spread, ("method", "samples", "parameter"))
+    _unknown(src, "spread", spread, FILE_KEYS["spread"])
     method = _choice(src, "spread.method", _get(src, "spread", spread, "method", "str", "latin_hypercube"), METHODS)
     samples = _get(src, "spread", spread, "samples", "int", 0)
     if method == "grid" and "samples" in spread:
@@ -432,7 +441,7 @@ def load_campaign(path: str | Path) -> Campaign:
             samples = 1
 
     execution = _get(src, "", data, "execution", "table", {})
-    _unknown(src, "execution", execution, ("retries", "records"))
+    _unknown(src, "execution", execution, FILE_KEYS["execution"])
     retries = _get(src, "execution", execution, "retries", "int", 2)
     if not 0 <= retries <= 10:
         raise _fail(src, "execution.retries", "must be within [0, 10]", retries)
@@ -441,7 +450,7 @@ def load_campaign(path: str | Path) -> Campaign:
     controllers = []
     for j, t in enumerate(_get(src, "", data, "controller", "tables", [])):
         w = f"controller[{j}]"
-        _unknown(src, w, t, ("name", "kind", "settings", "set") + FIRMWARE_KEYS)
+        _unknown(src, w, t, FILE_KEYS["controller"])
         cname = _get(src, w, t, "name", "str", required=True)
         ckind = _choice(src, f"{w}.kind", _get(src, w, t, "kind", "str", "emulated"), CONTROLLER_KINDS)
         settings = _get(src, w, t, "settings", "str")
@@ -485,7 +494,7 @@ def load_campaign(path: str | Path) -> Campaign:
                 raise ConfigError(f"{src}: campaign.{k}: belongs to kind = 'scenario'; a transient campaign "
                                   f"has [[case]] tables")
         plant = _get(src, "", data, "plant", "table", required=True)
-        _unknown(src, "plant", plant, ("machine", "converter", "set"))
+        _unknown(src, "plant", plant, FILE_KEYS["plant"])
         machine = _path(src, base, "plant.machine", _get(src, "plant", plant, "machine", "str", required=True))
         conv = _get(src, "plant", plant, "converter", "str")
         converter = _path(src, base, "plant.converter", conv) if conv else None
