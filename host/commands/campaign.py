@@ -13,7 +13,7 @@ EXAMPLE = """examples:
   dcrig campaign configs/campaigns/kestrel_f3_tolerance.toml            # local worker processes, one per core
   dcrig campaign configs/campaigns/kestrel_f3_tolerance_ci.toml --workers 2 --out /tmp/f3ci
   dcrig campaign configs/campaigns/kestrel_f3_tolerance.toml --out f3 --resume   # after an interruption
-  dcrig campaign configs/campaigns/kestrel_f3_tolerance.toml --cluster tcp://10.1.2.3:8786
+  dcrig campaign configs/campaigns/kestrel_f3_tolerance.toml --cluster tcp://scheduler-host:8786
 
 writes DIR/results.parquet (a row per run), DIR/report.html, DIR/junit.xml and DIR/runs/RUN_ID/;
 exit status 0 when every run passed, 1 when any failed or erred, 2 on a bad campaign file.
