@@ -13,7 +13,7 @@ import sys
 from .errors import DcrigError
 
 # one module per subcommand under host.commands, each with add_subparser(subparsers)
-COMMANDS = ("check", "op", "sim", "demo", "serve", "controller", "scenario", "suite", "campaign")
+COMMANDS = ("check", "op", "sim", "demo", "serve", "controller", "runs", "scenario", "suite", "campaign")
 
 SAFETY = (
     "CAUTION: dcrig models a machine; it does not make a real one safe. Energise real drives only\n"
@@ -44,8 +44,14 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        # the subcommand modules import numpy and friends here: a Ctrl-C in the first second
+        # lands in these imports and must end like any other interrupt, in one line
+        parser = build_parser()
+        args = parser.parse_args(argv)
+    except KeyboardInterrupt:
+        print("error: interrupted", file=sys.stderr)
+        return 130
     if not getattr(args, "func", None):
         parser.print_help()
         return 2
@@ -62,4 +68,8 @@ def main(argv: list[str] | None = None) -> int:
 
 
 if __name__ == "__main__":
-    sys.exit(main())
+    try:
+        sys.exit(main())
+    except KeyboardInterrupt:  # between main's return and exit: still one line
+        print("error: interrupted", file=sys.stderr)
+        sys.exit(130)

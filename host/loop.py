@@ -39,7 +39,7 @@ REC_COLUMNS = (
     "controller_trip", "trip_code", "armature_current_A", "armature_current_peak_A", "field_current_A",
     "terminal_voltage_V", "emf_V", "speed_rpm", "torque_Nm", "load_torque_Nm", "firing_angle_deg",
     "armature_temperature_C", "model_status", "host_status", "link_ok", "op_speed_ref_rpm",
-    "host_work_us",
+    "host_work_us", "field_mode",
 )  # fmt: skip
 R = {name: k for k, name in enumerate(REC_COLUMNS)}
 
@@ -125,10 +125,15 @@ class HostLoop:
     watchdog_periods : frames without a valid command that make a link-loss event
     on_link_loss : "block" (firing blocked, contactor opened) or "hold" (last command held)
     clock : injectable ns clock (tests force overruns with it)
+    recorder : a host.record.RunRecorder (columns REC_COLUMNS) that gets every frame row and
+        event as it happens, so a killed run keeps what it did; the in-memory array stays for
+        the live summary. The hand-off publishes the array and its row count (no copy, no
+        disk I/O on this thread); the recorder's writer thread reads the new rows from it.
     """
 
     def __init__(self, plant: Plant, session, frame_period_us: int, watchdog_periods: int = 10,
-                 on_link_loss: str = "block", record_rows: int = 65536, clock=time.perf_counter_ns):
+                 on_link_loss: str = "block", record_rows: int = 65536, clock=time.perf_counter_ns,
+                 recorder=None):
         if on_link_loss not in ("block", "hold"):
             raise ConfigError(f"link: on_link_loss: expected one of ['block', 'hold'], got {on_link_loss!r}")
         from rtmodel.kernel import step_frame
@@ -153,6 +158,7 @@ class HostLoop:
         self.record = np.zeros((record_rows, len(REC_COLUMNS)))  # doubles when full
         self.n_rec = 0
         self.events: list[tuple[float, str, str]] = []  # (time_s, kind, text)
+        self.recorder = recorder
         self.stats = LoopStats()
         self.last_cmd = sig.Command()
         self.fb = sig.Feedback()
@@ -286,10 +292,16 @@ class HostLoop:
         r[21] = 0.0 if self._link_lost else 1.0
         r[22] = self.operator.speed_ref_rpm
         r[23] = (self.clock() - work_start_ns) * 1e-3
+        r[24] = c.field_mode  # with the command columns, what an open-loop replay needs
         self.n_rec = k + 1
+        if self.recorder is not None:
+            self.recorder.publish(self.record, k + 1)  # zero copy: rows up to k are final
 
-    def event(self, kind: str, text: str) -> None:
-        self.events.append((float(self.y[L.Y_TIME_S]), kind, text))
+    def event(self, kind: str, text: str, **data) -> None:
+        t = float(self.y[L.Y_TIME_S])
+        self.events.append((t, kind, text))
+        if self.recorder is not None:
+            self.recorder.event(t, kind, text, **data)
 
     def rows(self) -> np.ndarray:
         return self.record[: self.n_rec]
@@ -373,6 +385,8 @@ class HostLoop:
                     missed = (done - next_t) // period + 1
                     self.stats.deadline_misses += int(missed)
                     next_t += int(missed) * period
+                    self.event("deadline", f"frame deadline missed by {(done - next_t + int(missed) * period) / 1000:.0f} us; "
+                                           f"{int(missed)} frame(s) skipped", missed=int(missed))
                 if on_frame is not None and on_frame(self) is False:
                     jitter = jitter[: k + 1]
                     break

@@ -53,6 +53,8 @@ def test_rows_and_events_round_trip_exactly(tmp_path):
     np.testing.assert_array_equal(rd.column("speed_rpm"), data[:, 2])
     win = rd.frames(1.0, 2.0)
     assert win[0, 0] == 1.0 and win[-1, 0] == 2.0 and len(win) == 1001
+    assert np.array_equal(np.concatenate(list(rd.iter_frames())), data)  # the streaming path too
+    assert np.array_equal(np.concatenate(list(rd.iter_frames(1.0, 2.0))), win)
 
 
 def test_a_row_is_copied_when_handed_over(tmp_path):
@@ -241,3 +243,27 @@ def test_configs_are_saved_as_resolved_toml_with_hashes(tmp_path):
         for part in path.split("."):
             node = node[part]
         assert node == (list(value) if isinstance(value, tuple) else value), path
+
+
+def test_publish_hands_over_the_callers_array_without_copying(tmp_path):
+    """HostLoop's path: it keeps its own row array (doubling it when full) and publishes it."""
+    data = _rows(3000)
+    arr = np.zeros((256, len(COLS)))
+    with RunRecorder(tmp_path / "r.sqlite", COLS, commit_interval_s=0.005) as rec:
+        for k, row in enumerate(data):
+            if k >= len(arr):
+                arr = np.concatenate([arr, np.zeros_like(arr)])
+            arr[k] = row
+            rec.publish(arr, k + 1)
+            if k % 500 == 0:
+                time.sleep(0.02)  # let the writer read mid-run, across a doubling
+        assert rec.rows_recorded == 3000
+    assert np.array_equal(open_record(tmp_path / "r.sqlite").frames(), data)
+
+
+def test_publish_and_frame_are_not_mixed(tmp_path):
+    rec = RunRecorder(tmp_path / "r.sqlite", COLS)
+    rec.frame(_rows(1)[0])
+    rec.publish(_rows(5), 5)
+    with pytest.raises(RecordError, match="mixed"):
+        rec.close()

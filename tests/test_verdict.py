@@ -82,6 +82,16 @@ def test_field_loss_only_counts_with_the_armature_energised():
     h = _harm(f)["field_loss_energised"]
     assert h.flagged and h.t_s == pytest.approx(1.01) and h.value == pytest.approx(3.9)
     assert not _harm(f, connection="series")["field_loss_energised"].flagged
+    # a shunt field across the armature is judged against the field its voltage drives: at
+    # 100 V of 500 V (below 30 %) nothing; at 300 V it should carry 0.4 x 10 x 300/500 = 2.4 A
+    f[:, R["terminal_voltage_V"]] = 100.0
+    assert not _harm(f, connection="shunt", rated_voltage_V=500.0)["field_loss_energised"].flagged
+    f[:, R["terminal_voltage_V"]] = 300.0
+    f[:, R["field_current_A"]] = 2.5
+    assert not _harm(f, connection="shunt", rated_voltage_V=500.0)["field_loss_energised"].flagged
+    f[150:, R["field_current_A"]] = 2.3
+    h = _harm(f, connection="shunt", rated_voltage_V=500.0)["field_loss_energised"]
+    assert h.flagged and h.t_s == pytest.approx(1.51)
 
 
 def test_current_rise_rate_is_per_frame_and_counts_rises_only():

@@ -32,26 +32,37 @@ def add_subparser(sub):
     p.add_argument("--watchdog", type=int, default=10, metavar="N", help="frames without a valid command before a link-loss event")
     p.add_argument("--on-link-loss", choices=("block", "hold"), default="block", help="what the host does on link loss")
     p.add_argument("--load", type=float, default=0.6, metavar="PU", help="load step as a fraction of rated torque")
-    p.add_argument("--out", default="dcrig-serve", metavar="DIR")
+    p.add_argument("--out", default="dcrig-serve", metavar="DIR",
+                   help="run folder: record.sqlite, configs/, frames.csv, events.csv, run.png; when DIR exists "
+                   "the run gets DIR-2, DIR-3, ... (a run folder is never overwritten)")
     p.set_defaults(func=_do_serve)
 
 
 def _do_serve(args):
     from ..link import open_link
+    from pathlib import Path
+
     from ..loop import warm_kernel
+    from ..record.rundir import discard_if_empty, new_run_dir
     from ..runner import default_timeline, run_closed_loop
     from . import load_plant
 
     print(SAFETY + "\n")
     plant = load_plant(args)
     timeline = default_timeline(plant, args.load)
-    warm_kernel(plant)  # compile before the controller's handshake and before any deadline
-    with open_link(args.link, baud=args.baud, parity=args.parity) as link:
-        if getattr(link, "latency_timer_ms", None) is not None:
-            print(f"USB-serial latency timer: {link.latency_timer_ms} ms")
-        if hasattr(link, "wait_connected"):
-            print(f"waiting for the controller on {link.url} ...")
-            link.wait_connected(60.0)
-        run_closed_loop(plant, link, encoding=args.encoding, paced=not args.lockstep, timeline=timeline,
-                        out_dir=args.out, watchdog_periods=args.watchdog, on_link_loss=args.on_link_loss)
+    out = Path(args.out)
+    run_dir = new_run_dir(out.parent, out.name)  # before the compile and the link: a bad folder is refused first
+    try:
+        warm_kernel(plant)  # compile before the controller's handshake and before any deadline
+        with open_link(args.link, baud=args.baud, parity=args.parity) as link:
+            if getattr(link, "latency_timer_ms", None) is not None:
+                print(f"USB-serial latency timer: {link.latency_timer_ms} ms")
+            if hasattr(link, "wait_connected"):
+                print(f"waiting for the controller on {link.url} ...")
+                link.wait_connected(60.0)
+            run_closed_loop(plant, link, encoding=args.encoding, paced=not args.lockstep, timeline=timeline,
+                            run_dir=run_dir, watchdog_periods=args.watchdog, on_link_loss=args.on_link_loss,
+                            meta={"run_name": "serve", "controller": f"on {args.link}"})
+    finally:
+        discard_if_empty(run_dir)
     return 0

@@ -45,6 +45,15 @@ def new_run_dir(base, name: str, option: str = "--out") -> Path:
     raise ConfigError(f"{option}: {base / name}: {MAX_SUFFIX} run folders of this name exist already")
 
 
+def discard_if_empty(run_dir) -> None:
+    """Remove a run folder that never got a record (the link would not open, say), so a
+    failed start leaves no empty folder behind. Anything inside keeps the folder."""
+    try:
+        Path(run_dir).rmdir()
+    except OSError:
+        pass
+
+
 def config_toml(values: dict) -> str:
     """A flat 'section.key' -> value dict as TOML text (tomli-w writes it: a well-kept writer
     rather than our own quoting). Keys whose value is None (unset optional keys) have no TOML
@@ -86,12 +95,36 @@ def write_atomic(path: Path, data: str | bytes) -> None:
         raise
 
 
+class AtomicTextFile:
+    """A text file written through a temporary file and renamed into place on success, so a
+    long export (millions of CSV rows) streams to disk and is still whole or absent."""
+
+    def __init__(self, path):
+        self.path = Path(path)
+        fd, self._tmp = tempfile.mkstemp(prefix="." + self.path.name + ".", suffix=".tmp", dir=self.path.parent)
+        self.fh = os.fdopen(fd, "w", newline="")
+
+    def __enter__(self):
+        return self.fh
+
+    def __exit__(self, exc_type, exc, tb):
+        self.fh.close()
+        if exc_type is None:
+            os.replace(self._tmp, self.path)
+        else:
+            try:
+                os.unlink(self._tmp)
+            except OSError:
+                pass
+        return False
+
+
 def save_configs(run_dir, configs: dict) -> dict:
     """Write each resolved config as run_dir/configs/<name>.toml; return meta entries:
     {name: {"source": file, "sha256": hash of the written TOML, "values": resolved values}}.
 
-    configs maps a name ("machine", "converter", "controller") to a host.config.Config, any
-    object with `.values` (flat dict) and `.source`, or a plain flat dict.
+    configs maps a name ("machine", "converter", "controller") to a host.config.Config
+    (`.values`), a controller Settings (`.as_dict()`), or a plain flat dict.
     """
     out = {}
     folder = Path(run_dir) / "configs"
@@ -99,7 +132,12 @@ def save_configs(run_dir, configs: dict) -> dict:
     for name, cfg in configs.items():
         if cfg is None:
             continue
-        values = cfg.values if hasattr(cfg, "values") and not isinstance(cfg, dict) else dict(cfg)
+        if isinstance(cfg, dict):
+            values = dict(cfg)
+        elif hasattr(cfg, "as_dict"):  # controller Settings
+            values = cfg.as_dict()
+        else:  # host.config.Config
+            values = dict(cfg.values)
         source = getattr(cfg, "source", None)
         text = config_toml(values)
         if source:

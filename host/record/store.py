@@ -17,7 +17,8 @@ Layout of the file:
   events(seq, t_s, kind, text, data)   data is JSON or NULL
   run_end(id=1, status, ended_utc, frames, dropped)   written by close(); absent = unfinished
 
-Threading: `frame(row)` copies one row into a preallocated block and publishes
+Threading: `publish(array, n)` (the host loop's path) hands over rows the caller keeps in its
+own array without copying; `frame(row)` copies one row into a preallocated block and publishes
 (block, first_row, n) as one tuple; the writer thread wakes every `commit_interval_s`,
 writes the new rows of full blocks and of the current block, and commits. A block goes
 back to the free pool only after its rows are committed, so the caller never writes into
@@ -154,6 +155,7 @@ class RunRecorder:
         self._dropped = 0
         self._drop_after_row = -1
         self._events = collections.deque()
+        self._src = None  # (array, n) from publish()
         # writer side
         self._done = 0  # rows committed (global row index of the next row to write)
         self._dropped_reported = 0
@@ -186,6 +188,14 @@ class RunRecorder:
         n += 1
         self._n = n
         self._cur = (buf, self._first, n)  # published after the copy: the writer sees whole rows
+
+    def publish(self, rows: np.ndarray, n_rows: int) -> None:
+        """Zero-copy hand-off for a caller that keeps its own row array (HostLoop does): rows
+        0..n_rows-1 of `rows` are final and are never written again. O(1): one tuple store, no
+        copy; the writer reads the new rows from the caller's array at its next commit. When
+        the caller grows its array it publishes the new one (the old one stays valid for a
+        writer still reading it). Not to be mixed with frame() in one recorder."""
+        self._src = (rows, n_rows)
 
     def frame_block(self, rows: np.ndarray) -> None:
         """Record many rows at once (offline runs): the block is copied and queued whole."""
@@ -231,7 +241,8 @@ class RunRecorder:
 
     @property
     def rows_recorded(self) -> int:
-        return self._first + self._n
+        src = self._src
+        return src[1] if src is not None else self._first + self._n
 
     @property
     def dropped(self) -> int:
@@ -251,8 +262,10 @@ class RunRecorder:
                 self._db.execute("INSERT INTO run_end VALUES (1, ?, ?, ?, ?)",
                                  (str(status), _utc_now(), self._done, self._dropped))
                 self._db.execute("COMMIT")
-                # fold the WAL into the main file so record.sqlite alone is the whole record
+                # fold the WAL into the main file and leave WAL mode, so record.sqlite alone is
+                # the whole record (no -wal/-shm files beside it, readers create none)
                 self._db.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+                self._db.execute("PRAGMA journal_mode=DELETE")
                 self.status = str(status)
         except sqlite3.Error as e:
             err = e
@@ -297,8 +310,14 @@ class RunRecorder:
             self._take(pieces, buf, first, n)
             if back:
                 recycle.append(buf)
-        buf, first, n = self._cur
-        self._take(pieces, buf, first, n)
+        src = self._src
+        if src is not None:
+            if self._first + self._n:
+                raise RecordError(f"{self.path}: publish() and frame() mixed in one recorder")
+            self._take(pieces, src[0], 0, src[1])
+        else:
+            buf, first, n = self._cur
+            self._take(pieces, buf, first, n)
         events = []
         while self._events:
             events.append(self._events.popleft())
@@ -329,7 +348,9 @@ class RunRecorder:
         start = self._done - first
         if start >= n:
             return
-        rows = buf[start:n]
+        rows = np.ascontiguousarray(buf[start:n], dtype=np.float64)
+        if rows.shape[1] != self.n_cols:
+            raise RecordError(f"{self.path}: rows of {rows.shape[1]} values, the record has {self.n_cols} columns")
         tc = self._time_col
         t0 = float(rows[0, tc]) if tc is not None else None
         t1 = float(rows[-1, tc]) if tc is not None else None
@@ -410,6 +431,29 @@ class RecordReader:
             t = rows[:, self.R["time_s"]]
             rows = rows[(t >= args[0]) & (t <= args[1])]
         return rows.astype(np.float64, copy=True)
+
+    def iter_frames(self, t_from_s: float | None = None, t_to_s: float | None = None):
+        """The committed rows block by block (arrays of up to a few thousand rows), in order:
+        for exports of long runs without holding the whole record in memory."""
+        n_cols = len(self.columns)
+        tc = self.R.get("time_s")
+        lo = -np.inf if t_from_s is None else t_from_s
+        hi = np.inf if t_to_s is None else t_to_s
+        expect = 0
+        try:
+            cur = self._db.execute("SELECT first_row, n_rows, data FROM frame_blocks ORDER BY first_row")
+            for first, n, data in cur:
+                if first != expect or len(data) != n * n_cols * 8:
+                    raise RecordError(f"{self.path}: frame block at row {first} is damaged or out of place")
+                expect = first + n
+                rows = np.frombuffer(data, dtype="<f8").reshape(n, n_cols).astype(np.float64)
+                if tc is not None and (t_from_s is not None or t_to_s is not None):
+                    t = rows[:, tc]
+                    rows = rows[(t >= lo) & (t <= hi)]
+                if len(rows):
+                    yield rows
+        except sqlite3.Error as err:
+            raise RecordError(f"{self.path}: not a readable dcrig record ({err})") from err
 
     def column(self, name: str, rows: np.ndarray | None = None) -> np.ndarray:
         if name not in self.R:

@@ -101,6 +101,7 @@ def harm_limits(plant, scn: Scenario | None = None) -> dict:
         "field_loss_fraction": 0.4,  # field below 40 % of rated ...
         "field_loss_current_pu": 0.1,  # ... while the armature carries over 10 % of rated current
         "rated_field_current_A": v.get("machine.rated_field_current_A") or 0.0,
+        "rated_voltage_V": v["machine.rated_voltage_V"],
         "connection": v["machine.connection"],
     }
     if scn is not None:
@@ -211,11 +212,12 @@ def run_scenario(scn: Scenario, out_dir=None, *, link_url: str | None = None, fw
     run_dir = None
     recorder = None
     if out_dir is not None:
-        from host.record import RunRecorder, new_run_dir
+        from host.record import new_run_dir
+        from host.recording import open_run_record
 
         run_dir = new_run_dir(out_dir, scn.name)
-        recorder = RunRecorder(run_dir / "record.sqlite", REC_COLUMNS, meta, lossless=True,
-                               synchronous="NORMAL")
+        extra = {"controller": settings} if settings is not None else {}
+        recorder = open_run_record(run_dir, REC_COLUMNS, plant, meta, extra, lossless=True, synchronous="NORMAL")
 
     proc = None
     cable = None
@@ -257,17 +259,13 @@ def run_scenario(scn: Scenario, out_dir=None, *, link_url: str | None = None, fw
             session = HostSession(link, encoding=scn.encoding, frame_period_us=period_us)
             session.handshake(timeout_s=30.0)
         gate = LinkGate(session)
-        loop = HostLoop(plant, gate, period_us, watchdog_periods=10)
+        # the loop hands every frame row and event to the recorder as it happens (a killed run
+        # keeps what it did); the verdicts read them back from the record afterwards
+        loop = HostLoop(plant, gate, period_us, watchdog_periods=10, recorder=recorder)
         _start_state(loop, scn)
         loop.hooks.append(ScenarioDriver(scn, gate))
 
-        def per_frame(lp):
-            if recorder is not None:
-                recorder.frame(lp.record[lp.n_rec - 1])
-            if on_frame is not None:
-                on_frame(lp)
-
-        loop.run_lockstep(n_frames, on_frame=per_frame, command_timeout_s=5.0 if kind != "emulated" else None)
+        loop.run_lockstep(n_frames, on_frame=on_frame, command_timeout_s=5.0 if kind != "emulated" else None)
     except (KeyboardInterrupt, DcrigError) as err:
         stopped = err
         status = f"stopped: {err.__class__.__name__}: {err}"
@@ -293,9 +291,6 @@ def run_scenario(scn: Scenario, out_dir=None, *, link_url: str | None = None, fw
         if cable is not None:
             cable.close()
         if recorder is not None:
-            if loop is not None:
-                for e in loop.events:
-                    recorder.event(e[0], e[1], e[2])
             recorder.close(status if stopped is None else "stopped")
     if loop is None:
         raise stopped if stopped is not None else LinkError(f"{scn.path}: the run did not start")

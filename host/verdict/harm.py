@@ -7,7 +7,9 @@ from the machine config and the scenario's [harm] table by host.scenario.run.har
                           falling above base speed (piecewise linear in per unit)
     overspeed             |n| > mechanical_limit_rpm
     field_loss_energised  If < field_loss_fraction x If_rated while |Ia| > field_loss_current_pu x
-                          I_rated (not for series machines, whose field is the armature current)
+                          I_rated (not for series machines, whose field is the armature current;
+                          for a shunt field across the armature, against If_rated x |Vt|/V_rated
+                          once |Vt| > 0.3 V_rated)
     winding_temperature   armature temperature > the insulation class limit (IEC 60034-1
                           thermal classes, from memory: B 130 C, F 155 C, H 180 C)
     armature_overvoltage  |frame-mean terminal voltage| > overvoltage_V
@@ -90,7 +92,15 @@ def harm_checks(frames: np.ndarray, columns, meta: dict) -> list[HarmResult]:
         i_f = frames[:, col["field_current_A"]]
         f_lim = h["field_loss_fraction"] * h["rated_field_current_A"]
         energised = np.abs(ia) > h["field_loss_current_pu"] * i_rated
-        over = (i_f < f_lim) & energised
+        if str(h.get("connection", "")).startswith(("shunt", "compound")) and h.get("rated_voltage_V"):
+            # a shunt field across the armature follows the terminal voltage: judge it against
+            # the field that voltage should drive, from 30 % of rated voltage up (below it the
+            # voltage itself limits the speed)
+            va = np.abs(frames[:, col["terminal_voltage_V"]])
+            energised &= va > 0.3 * h["rated_voltage_V"]
+            over = (i_f < f_lim * va / h["rated_voltage_V"]) & energised
+        else:
+            over = (i_f < f_lim) & energised
         r = _first_worst(t, over, i_f, f_lim, "field_loss_energised",
                          f"field current below {f_lim:.3g} A with the armature carrying over "
                          f"{h['field_loss_current_pu'] * i_rated:.0f} A", "A", accept, worst_is_max=False)
