@@ -123,6 +123,19 @@ def test_table_matches_the_runs_done_one_by_one(finished):
         assert row["record"] == f"runs/{spec.run_id}" and (out / row["record"] / "frames.csv").is_file()
 
 
+def test_kernel_warmed_once_per_worker_not_per_run(finished, client):
+    from host.campaign.engine import worker_state
+
+    _, _, outcome = finished
+    states = client.run(worker_state)
+    assert len(states) == 2
+    for st in states.values():
+        assert st["kernel_warm_s"] >= 0.0  # the plugin ran on this worker before its runs
+    assert sum(st["runs"] for st in states.values()) >= outcome.ran  # and the runs came after it
+    pids = {st["pid"] for st in states.values()}
+    assert {int(r["worker"].rsplit(":", 1)[1]) for r in outcome.rows} <= pids
+
+
 def test_figures_follow_the_closed_form_current_rise(finished):
     _, _, outcome = finished
     for row in outcome.rows:
