@@ -272,7 +272,7 @@ def test_a_killed_worker_has_its_run_done_elsewhere(tmp_path):
                     break
             time.sleep(0.05)
         assert victim is not None, "no run started within 120 s"
-        time.sleep(0.5)  # well inside the ~2.5 s run
+        time.sleep(0.2)  # inside the run: 2.5 s of model time at one kernel call per step takes 1-3 s
         pid = client.run(os.getpid, workers=[victim])[victim]
         os.kill(pid, signal.SIGKILL)
         th.join(timeout=300.0)
@@ -346,7 +346,7 @@ def test_cluster_address_unreachable_is_one_line(campaign_file, tmp_path, capsys
     assert rc == 2 and err.startswith("error: --cluster: tcp://127.0.0.1:") and len(err.splitlines()) == 1
 
 
-def test_ctrl_c_keeps_finished_runs_and_resume_does_only_the_rest(tmp_path):
+def test_ctrl_c_keeps_finished_runs_and_resume_does_only_the_rest(tmp_path, client):
     # the command interrupted for real (SIGINT, as Ctrl-C) after its first finished run
     import subprocess
     import sys
@@ -376,16 +376,7 @@ def test_ctrl_c_keeps_finished_runs_and_resume_does_only_the_rest(tmp_path):
     kept = read_rows(out / "results.parquet")
     assert 1 <= len(kept) < 6
     camp = load_campaign(p)
-    from distributed import Client, LocalCluster
-
-    cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0",
-                           silence_logs=50)
-    client = Client(cluster)
-    try:
-        again = run_campaign(camp, out, client=client, progress=False, resume=True)
-    finally:
-        client.close()
-        cluster.close()
+    again = run_campaign(camp, out, client=client, progress=False, resume=True)
     done_before = sum(r["status"] in ("pass", "fail") for r in kept)
     assert again.skipped == done_before and again.ran == 6 - done_before
     assert len(again.rows) == 6 and all(r["status"] == "pass" for r in again.rows)
