@@ -43,6 +43,13 @@ def _do_campaign(args):
     from ..campaign.report import write_html, write_junit
     from ..campaign.spec import load_campaign
 
+    import importlib.util
+
+    missing = [m for m in ("dask", "distributed", "pyarrow") if importlib.util.find_spec(m) is None]
+    if missing:
+        from ..errors import DcrigError
+
+        raise DcrigError(f"campaign: needs {', '.join(missing)}: pip install 'dcrig[campaign]'")
     if args.workers is not None and args.workers < 1:
         raise ConfigError(f"--workers: must be >= 1, got {args.workers!r}")
     if args.workers is not None and args.cluster:
