@@ -380,3 +380,56 @@ def test_ctrl_c_keeps_finished_runs_and_resume_does_only_the_rest(tmp_path, clie
     done_before = sum(r["status"] in ("pass", "fail") for r in kept)
     assert again.skipped == done_before and again.ran == 6 - done_before
     assert len(again.rows) == 6 and all(r["status"] == "pass" for r in again.rows)
+
+
+def _inject_one_failure_per_run(marker_dir: str) -> None:
+    """On a worker: the first attempt of every run raises (an unexpected error, not a DcrigError)."""
+    import host.campaign.transient as tr
+
+    real = getattr(tr, "_real_run_transient", tr.run_transient)
+    tr._real_run_transient = real
+
+    def flaky(spec, out_dir, record="all"):
+        mark = Path(marker_dir) / spec.run_id
+        if not mark.exists():
+            mark.write_text(str(os.getpid()))
+            raise RuntimeError(f"injected failure of run {spec.run_id}")
+        return real(spec, out_dir, record)
+
+    tr.run_transient = flaky
+
+
+def _undo_injection() -> None:
+    import host.campaign.transient as tr
+
+    if hasattr(tr, "_real_run_transient"):
+        tr.run_transient = tr._real_run_transient
+
+
+@pytest.mark.parametrize("retries", [2, 0])
+def test_an_unexpected_error_is_retried_or_reported(finished, client, tmp_path, retries):
+    import sys
+
+    import cloudpickle
+
+    camp, _, outcome = finished
+    camp = load_campaign(Path(camp.source))
+    camp.retries = retries
+    marks = tmp_path / "marks"
+    marks.mkdir()
+    cloudpickle.register_pickle_by_value(sys.modules[__name__])  # these helpers go to the workers by value
+    try:
+        client.run(_inject_one_failure_per_run, str(marks))
+        got = run_campaign(camp, tmp_path / "out", client=client, progress=False)
+    finally:
+        client.run(_undo_injection)
+        cloudpickle.unregister_pickle_by_value(sys.modules[__name__])
+    assert len(got.rows) == 16 and len(list(marks.iterdir())) == 16  # every run failed once
+    if retries:
+        ref = {r["run_id"]: r for r in outcome.rows}
+        assert all(r["status"] in ("pass", "fail") for r in got.rows)  # the retry did it
+        for r in got.rows:
+            assert r[f"figure:armature_current_A@{T_JUDGE}"] == ref[r["run_id"]][f"figure:armature_current_A@{T_JUDGE}"]
+    else:
+        assert all(r["status"] == "error" for r in got.rows)  # reported, not lost
+        assert all("RuntimeError: injected failure of run" in r["error"] for r in got.rows)
