@@ -206,7 +206,7 @@ electrical codes, licensed practice and a qualified person.</p>
 
 <h2>Pass rate per scenario and controller</h2>
 <table><tr><th class="l">scenario</th><th class="l">controller</th><th>runs</th><th>pass</th><th>fail</th>
-<th>error</th><th>pass rate</th><th>worst margin</th><th class="l">worst run</th><th class="l">depends most on</th></tr>
+<th>error</th><th>pass rate</th><th>worst margin</th><th class="l">worst run</th><th class="l">margin depends most on</th></tr>
 {% for g in groups %}
 <tr class="{{ 'good' if g.n_fail + g.n_error == 0 else 'bad' }}"><td class="l">{{ g.scenario }}</td>
 <td class="l">{{ g.controller }}</td><td>{{ g.n }}</td><td>{{ g.n_pass }}</td><td>{{ g.n_fail }}</td>
