@@ -14,7 +14,8 @@ import textwrap
 from .errors import DcrigError
 
 # one module per subcommand under host.commands, each with add_subparser(subparsers)
-COMMANDS = ("check", "steady", "sim", "demo", "serve", "controller", "identify", "calc", "runs", "scenario", "suite")
+COMMANDS = ("check", "steady", "sim", "demo", "serve", "controller", "identify", "calc", "runs", "scenario", "suite",
+            "campaign")
 # old command names that still work for one release, listed nowhere (not in help, not in the
 # invalid-choice message): main() swaps them for the new name and prints a note
 HIDDEN_ALIASES = {"op": "steady"}
