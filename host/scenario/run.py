@@ -139,15 +139,19 @@ def trip_class_table(scn: Scenario, settings) -> dict[int, str]:
 
 
 def compile_c_example(out_dir: Path | None = None) -> Path:
-    """Build tools/fwlib/example_controller.c with the system C compiler (cached per folder)."""
+    """Build tools/fwlib/example_controller.c with the system C compiler (cached by the sources'
+    content: checkouts of different protocol versions never share a binary)."""
+    import hashlib
+
     cc = shutil.which("cc")
     if cc is None:
         raise DcrigError("controller kind 'c_example': the system C compiler `cc` is missing")
     out_dir = Path(out_dir or tempfile.gettempdir()) / f"dcrig-fw-{os.getuid()}"
     out_dir.mkdir(parents=True, exist_ok=True)
-    exe = out_dir / "example_controller"
     srcs = [FWLIB / "example_controller.c", FWLIB / "dcrig_link.c"]
-    if exe.exists() and all(exe.stat().st_mtime >= s.stat().st_mtime for s in srcs + [FWLIB / "dcrig_link.h"]):
+    digest = hashlib.sha256(b"".join(p.read_bytes() for p in srcs + [FWLIB / "dcrig_link.h"])).hexdigest()[:16]
+    exe = out_dir / f"example_controller-{digest}"
+    if exe.exists():
         return exe
     tmp = out_dir / f"example_controller.{os.getpid()}"
     res = subprocess.run([cc, "-std=c99", "-O2", "-o", str(tmp)] + [str(s) for s in srcs],
@@ -261,6 +265,8 @@ def run_scenario(scn: Scenario, out_dir=None, *, link_url: str | None = None, fw
                     link.wait_connected(60.0)
             session = HostSession(link, encoding=scn.encoding, frame_period_us=period_us)
             session.handshake(timeout_s=30.0)
+            if hasattr(link, "release_peer_hold"):
+                link.release_peer_hold()  # the controller holds its end now: its death closes the cable
         gate = LinkGate(session)
         # the loop hands every frame row and event to the recorder as it happens (a killed run
         # keeps what it did); the verdicts read them back from the record afterwards
@@ -268,7 +274,10 @@ def run_scenario(scn: Scenario, out_dir=None, *, link_url: str | None = None, fw
         _start_state(loop, scn)
         loop.hooks.append(ScenarioDriver(scn, gate))
 
-        loop.run_lockstep(n_frames, on_frame=on_frame, command_timeout_s=5.0 if kind != "emulated" else None)
+        # a controller on a link that falls silent ends the run (LinkTimeout, record kept) instead
+        # of crawling at one command timeout per frame
+        loop.run_lockstep(n_frames, on_frame=on_frame, command_timeout_s=5.0 if kind != "emulated" else None,
+                          peer_timeout_s=None if kind == "emulated" else 10.0)
     except (KeyboardInterrupt, DcrigError) as err:
         stopped = err
         status = f"stopped: {err.__class__.__name__}: {err}"
