@@ -500,7 +500,7 @@ class HostLoop:
         sess = self.session
         self.lockstep = True
         timeout = command_timeout_s or max(0.2, self.frame_period_us * 1e-6)
-        connects = getattr(sess.link, "connects", None)
+        connects = getattr(getattr(sess, "link", None), "connects", None)
         sess.send_feedback(self.make_feedback())
         last_valid = time.monotonic()
         for _ in range(n_frames):
@@ -509,10 +509,12 @@ class HostLoop:
             if cmd is None and sess.bye:
                 self.event("link", "controller said bye")
                 break
-            now_connects = getattr(sess.link, "connects", None)
-            if sess.peer_restarted or now_connects != connects:
+            now_connects = getattr(getattr(sess, "link", None), "connects", None)
+            # a channel-less session (in-process controller, playback) never restarts
+            restarted = getattr(sess, "peer_restarted", False)
+            if restarted or now_connects != connects:
                 connects = now_connects
-                self._rehandshake(handshake_timeout_s, "reconnected" if not sess.peer_restarted else "restarted")
+                self._rehandshake(handshake_timeout_s, "restarted" if restarted else "reconnected")
                 sess.send_feedback(self.make_feedback())
                 continue
             if cmd is not None:
