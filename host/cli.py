@@ -9,17 +9,30 @@ from __future__ import annotations
 import argparse
 import importlib
 import sys
+import textwrap
 
 from .errors import DcrigError
 
 # one module per subcommand under host.commands, each with add_subparser(subparsers)
-COMMANDS = ("check", "op", "sim", "demo", "serve", "controller")
+COMMANDS = ("check", "steady", "sim", "demo", "serve", "controller")
+# old command names that still work for one release, listed nowhere (not in help, not in the
+# invalid-choice message): main() swaps them for the new name and prints a note
+HIDDEN_ALIASES = {"op": "steady"}
 
-SAFETY = (
-    "CAUTION: dcrig models a machine; it does not make a real one safe. Energise real drives only\n"
-    "under your site's lock-out rules, local electrical codes and licensed practice. An unloaded\n"
-    "series motor runs away; a shunt motor that loses its field overspeeds; armature and field\n"
-    "inductances store energy that arcs when broken. Never rely on a simulated trip for safety."
+# The deferral every caution ends with: the help of every command, the README, the docs'
+# caution boxes, the config-reference generator and the C library's header carry this exact
+# sentence (tests/test_cautions.py checks them all against this string).
+DEFER_TO_CODES = (
+    "Follow local electrical codes and licensed practice, and leave the wiring, energising and "
+    "protection of a real drive to a qualified person; nothing in dcrig replaces them."
+)
+
+SAFETY = textwrap.fill(
+    "CAUTION: dcrig models a machine; it does not make a real one safe. An unloaded series motor "
+    "runs away; a shunt motor that loses its field overspeeds; armature and field inductances "
+    "store energy that arcs when broken. Never rely on a simulated trip for safety. Keep to your "
+    "site's lock-out rules. " + DEFER_TO_CODES,
+    width=92,
 )
 
 
@@ -43,8 +56,22 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _swap_hidden_alias(argv: list[str]) -> list[str]:
+    for i, word in enumerate(argv):
+        if word.startswith("-"):
+            continue  # a global option such as --debug
+        if word in HIDDEN_ALIASES:
+            new = HIDDEN_ALIASES[word]
+            print(f"note: `dcrig {word}` is renamed to `dcrig {new}`; the old name goes in the next release",
+                  file=sys.stderr)
+            return [*argv[:i], new, *argv[i + 1:]]
+        break
+    return argv
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
+    argv = _swap_hidden_alias(list(sys.argv[1:] if argv is None else argv))
     args = parser.parse_args(argv)
     if not getattr(args, "func", None):
         parser.print_help()

@@ -28,6 +28,7 @@ from rtmodel import layout as L
 
 from . import signals as sig
 from .controller import firing  # the bridge voltage laws (pure; shared with the controller)
+from .controller.protection import trip_detail, trip_label  # trip codes printed with their names
 from .errors import ConfigError
 from .params import Plant
 
@@ -252,7 +253,7 @@ class HostLoop:
         self._step(self.x, self.p, self.u, self.y, self.n_sub)
         if c.trip and not self._trip_logged:
             self._trip_logged = True
-            self.event("trip", f"controller tripped, code {c.trip_code}")
+            self.event("trip", f"controller tripped, code {trip_label(c.trip_code)}")
         self._log_row(c, work_start_ns)
         self.stats.frames += 1
 
@@ -388,7 +389,8 @@ class HostLoop:
     def _drain_events(self) -> None:
         for ev in self.session.pop_events():
             if isinstance(ev, sig.TripReport):
-                self.event("trip", f"trip report: code {ev.trip_code}, detail {ev.detail:g}, "
+                self.event("trip", f"trip report: code {trip_label(ev.trip_code)}, "
+                                   f"detail {trip_detail(ev.trip_code, ev.detail)}, "
                                    f"controller time {ev.controller_time_us} us")
             elif isinstance(ev, sig.ControlMessage):
                 self.event("control", f"control op {ev.op} value {ev.value:g} {ev.text}".strip())

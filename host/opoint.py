@@ -1,12 +1,12 @@
-"""Steady-state operating point of the machine model (the engine of `dcrig op`).
+"""Steady-state operating point of the machine model (the engine of `dcrig steady`).
 
 Owns: the DC steady state of the same circuit equations the step kernel integrates (every
 connection, motoring and generating, self-excited build-up), the power and loss balance, the
 firing angle a converter needs for that point, and the continuity estimate of the bridge
 current. Reads the packed parameter array of a host.params.Plant and evaluates the curve with
 rtmodel.magnetization (the kernel's own functions), so the two cannot drift apart.
-Must never import scipy (test-only) and imports rtmodel.kernel only inside kernel_bridge_run,
-lazily, so a plain operating point never compiles the step kernel.
+Must never import scipy (test-only) and imports rtmodel.kernel only inside the kernel runs of
+the switched bridge (_run_at), lazily, so a plain operating point never compiles the step kernel.
 
 Equations (motor convention: i1 = line current into the + terminal; rtmodel/kernel.py):
 
@@ -469,7 +469,7 @@ def solve_motor(
     chosen = [k for k, val in given.items() if val is not None]
     if len(chosen) != 1:
         raise ConfigError(
-            "op: a motor point needs --vt and exactly one of --load-torque, --line-current, "
+            "steady: a motor point needs --vt and exactly one of --load-torque, --line-current, "
             f"--armature-current, --speed; got {len(chosen)}"
             + (f" ({', '.join(chosen)})" if chosen else "")
         )
@@ -581,7 +581,7 @@ def solve_generator(
     returned; when there is none, found is False and reason says why.
     """
     if load_ohm is not None and load_current_A is not None:
-        raise ConfigError("op: a generator point takes at most one of --load-ohm, --load-current")
+        raise ConfigError("steady: a generator point takes at most one of --load-ohm, --load-current")
     w = _finite(speed_rpm, "--speed") * RPM
     if load_ohm is not None:
         r_load = _finite(load_ohm, "--load-ohm")
@@ -880,19 +880,9 @@ def converter_point(op: OpPoint) -> dict:
     return out
 
 
-def kernel_bridge_run(op: OpPoint, settle_s: float | None = None) -> dict:
-    """Run the compiled kernel with the converter at the op's firing angle and the op's speed
-    imposed; report whether the current is continuous over the last mains cycle and its mean.
-
-    The switched bridge shows discontinuous conduction itself, so this is the authoritative
-    verdict for kind bridge/dual_bridge. Costs a kernel compile the first time (cached after).
-    """
-    from rtmodel.kernel import step_frame
-
+def _bridge_run_setup(op: OpPoint):
+    """Arrays for a kernel run of op's converter at op's speed (imposed) and field."""
     conv = op.converter or {}
-    alpha = conv.get("firing_angle_deg")
-    if alpha is None:
-        return {}
     plant = op.plant
     s, c = op.state, op.circuit
     p = plant.p.copy()
@@ -904,53 +894,191 @@ def kernel_bridge_run(op: OpPoint, settle_s: float | None = None) -> dict:
     if c.has_shunt:
         x[L.X_I_FIELD_A] = s.ish
     u = plant.new_inputs()
-    u[L.U_ALPHA_DEG] = alpha
     u[L.U_PRIME_SPEED_RAD_S] = s.w
     u[L.U_BRIDGE_SELECT] = 1.0 if conv.get("bridge", "forward") == "forward" else 2.0
     u[L.U_CONTACTOR] = 1.0
     u[L.U_FIELD_V] = s.vf
     if conv.get("field_firing_angle_deg") is not None:
         u[L.U_FIELD_ALPHA_DEG] = conv["field_firing_angle_deg"]
-    f = plant.converter["mains.frequency_Hz"]
-    dt = plant.dt_s
-    n_pulse = max(1, int(round(1.0 / (6.0 * f) / dt)))
-    lind = conv.get("loop_inductance_H") or p[L.P_LA_H]
+    return p, x, u
+
+
+def _settle_time_s(op: OpPoint) -> float:
+    c = op.circuit
+    lind = (op.converter or {}).get("loop_inductance_H") or op.plant.p[L.P_LA_H]
     tau = lind / max(c.ra + (c.rse if c.has_series else 0.0), 1e-9)
-    t_settle = settle_s if settle_s is not None else min(max(8.0 * tau, 0.1), 2.0)
+    return min(max(8.0 * tau, 0.1), 2.0)
+
+
+def _run_at(op, arrays, alpha_deg, t_settle, n_cycles=3):
+    """Settle the kernel at alpha_deg, then measure over whole mains cycles (one call per
+    cycle, so the ripple cannot bias the means); arrays (p, x, u) carry the state on."""
+    from rtmodel.kernel import step_frame
+
+    p, x, u = arrays
+    u[L.U_ALPHA_DEG] = alpha_deg
+    f = op.plant.converter["mains.frequency_Hz"]
+    dt = op.plant.dt_s
+    n_pulse = max(1, int(round(1.0 / (6.0 * f) / dt)))
+    n_cycle = max(1, int(round(1.0 / f / dt)))
     y = np.zeros(L.N_OUTPUT)
     for _ in range(int(math.ceil(t_settle / (n_pulse * dt)))):
         step_frame(x, p, u, y, n_pulse)
     status = 0
     ia_sum = vt_sum = 0.0
-    for _ in range(6):
-        status |= int(step_frame(x, p, u, y, n_pulse))
+    for _ in range(n_cycles):
+        status |= int(step_frame(x, p, u, y, n_cycle))
         ia_sum += y[L.Y_IA_MEAN_A]
         vt_sum += y[L.Y_VT_MEAN_V]
     return {
+        "firing_angle_deg": float(alpha_deg),
         "continuous": not bool(status & L.ST_DISCONTINUOUS),
-        "mean_armature_current_A": ia_sum / 6.0,
-        "mean_terminal_voltage_V": vt_sum / 6.0,
+        "mean_armature_current_A": ia_sum / n_cycles,
+        "mean_terminal_voltage_V": vt_sum / n_cycles,
         "status": status,
         "settle_s": t_settle,
     }
 
 
+def kernel_bridge_run(op: OpPoint, settle_s: float | None = None, alpha_deg: float | None = None) -> dict:
+    """Run the compiled kernel with the converter at the op's firing angle (or alpha_deg) and
+    the op's speed imposed; report whether the current is continuous over the last three mains
+    cycles (the kernel flags a current zero anywhere, also inside a step) and the means.
+
+    Costs a kernel compile the first time (cached after).
+    """
+    alpha = (op.converter or {}).get("firing_angle_deg") if alpha_deg is None else alpha_deg
+    if alpha is None:
+        return {}
+    t_settle = settle_s if settle_s is not None else _settle_time_s(op)
+    return _run_at(op, _bridge_run_setup(op), alpha, t_settle)
+
+
+def switched_bridge_point(op: OpPoint, rel_tol: float = 0.002, max_runs: int = 40) -> dict:
+    """The switched bridge at op's own point: the firing angle at which the kernel, at op's
+    speed, carries op's mean armature current, and whether its current is continuous there.
+
+    The firing angle from the continuous-conduction formula (Vd = Vdo cos a - (3/pi) w Ls Id)
+    gives a different current in the switched model at light load: the formula knows neither
+    the ripple (the overlap takes the current at the commutation instant, not the mean) nor
+    the gaps of discontinuous conduction (the terminals then show the EMF). With the speed, and
+    so the EMF, imposed, the mean current fixes the mean voltage through the armature KVL, so
+    matching the current puts the switched bridge at op's point. g(alpha) = |I(alpha)| - |I_op|
+    falls with alpha, steeply in continuous conduction and gently in discontinuous: the angle
+    is bracketed by steps that double from the continuous-conduction slope
+    dV/dalpha = -Vdo sin(alpha), then found by false position (Illinois variant); each run
+    settles from the previous state.
+
+    Returns {"at_formula_angle": run, "at_op_current": run, "converged": bool}.
+    """
+    conv = op.converter or {}
+    alpha0 = conv.get("firing_angle_deg")
+    if alpha0 is None:
+        return {}
+    cv = op.plant.converter.values
+    a_min, a_max = cv["bridge.alpha_min_deg"], cv["bridge.alpha_max_deg"]
+    target = abs(op.state.ia)
+    tol = max(rel_tol * target, 1e-4 * op.plant.machine.values["machine.rated_current_A"])
+    t_settle = _settle_time_s(op)
+    arrays = _bridge_run_setup(op)
+    runs = 0
+
+    def g(alpha):
+        nonlocal runs
+        runs += 1
+        run = _run_at(op, arrays, alpha, t_settle)
+        return abs(run["mean_armature_current_A"]) - target, run
+
+    g0, first = g(alpha0)
+    out = {"at_formula_angle": first, "at_op_current": first, "converged": abs(g0) <= tol}
+    if out["converged"]:
+        return out
+    c = op.circuit
+    r_loop = (c.ra + (c.rse if c.has_series else 0.0) + 2.0 * cv["mains.resistance_ohm"]
+              + 6.0 * cv["mains.frequency_Hz"] * cv["mains.inductance_H"])  # (3/pi) w Ls
+    vdo = 3.0 * math.sqrt(2.0) / math.pi * cv["mains.voltage_V"]
+    slope = vdo * max(math.sin(math.radians(alpha0)), 0.05) * math.pi / 180.0 / r_loop  # A per deg
+    # the kernel fires in the step whose midpoint passes the instant, so I(alpha) is a
+    # staircase on a grid of a fraction of the step's mains angle: below that the angle is
+    # resolved as far as the model can, and the nearer end of the bracket is op's point
+    a_res = 360.0 * cv["mains.frequency_Hz"] * op.plant.dt_s / 8.0
+    step = max(abs(g0) / slope, 0.01) * (1.0 if g0 > 0.0 else -1.0)
+    lo = hi = (alpha0, g0, first)
+    while (hi[1] > 0.0) == (g0 > 0.0) and runs < max_runs:
+        a_new = min(max(alpha0 + step, a_min), a_max)
+        if a_new == hi[0]:
+            out["at_op_current"] = hi[2]
+            return out  # held at a limit of the bridge's range
+        f_new, run = g(a_new)
+        lo, hi = hi, (a_new, f_new, run)
+        step *= 2.0
+        if abs(f_new) <= tol:
+            out.update(at_op_current=run, converged=True)
+            return out
+    # lo and hi bracket the angle (g of opposite signs): false position, Illinois variant
+    side = 0
+    while runs < max_runs and abs(hi[0] - lo[0]) > a_res:
+        (a0, f0, r0), (a1, f1, r1) = lo, hi
+        a = a1 - f1 * (a1 - a0) / (f1 - f0)
+        fa, run = g(a)
+        if abs(fa) <= tol:
+            out.update(at_op_current=run, converged=True)
+            return out
+        if (fa > 0.0) == (f1 > 0.0):
+            hi = (a, fa, run)
+            if side == -1:
+                lo = (a0, 0.5 * f0, r0)
+            side = -1
+        else:
+            lo = (a, fa, run)
+            if side == 1:
+                hi = (a1, 0.5 * f1, r1)
+            side = 1
+    best = min((lo, hi), key=lambda e: abs(abs(e[2]["mean_armature_current_A"]) - target))
+    out.update(at_op_current=best[2], converged=abs(hi[0] - lo[0]) <= a_res)
+    return out
+
+
 def with_converter(op: OpPoint, use_kernel: bool = True) -> OpPoint:
-    """Attach the converter analysis; for switched bridges, confirm continuity by a kernel run."""
+    """Attach the converter analysis; for switched bridges, decide continuity by kernel runs
+    at op's own point (switched_bridge_point)."""
     if op.plant.converter is None or not op.found:
         return op
     op.converter = converter_point(op)
     kind = op.plant.converter["converter.kind"]
     if use_kernel and kind in ("bridge", "dual_bridge") and op.converter.get("firing_angle_deg") is not None:
-        run = kernel_bridge_run(op)
-        op.converter["kernel"] = run
-        op.converter["continuous"] = run["continuous"]
-        op.converter["continuity_basis"] = "kernel run of the switched bridge at this angle and speed"
-        if not run["continuous"]:
+        pt = switched_bridge_point(op)
+        first, here = pt["at_formula_angle"], pt["at_op_current"]
+        conv = op.converter
+        conv["kernel"] = first
+        conv["kernel_at_op_current"] = here
+        conv["switched_mean_armature_current_A"] = first["mean_armature_current_A"]
+        conv["switched_firing_angle_deg"] = here["firing_angle_deg"] if pt["converged"] else None
+        # a current zero in either run is discontinuous conduction; the point's own run decides
+        conv["continuous"] = first["continuous"] and here["continuous"]
+        conv["continuity_basis"] = ("kernel runs of the switched bridge at this speed: at the formula's "
+                                    "angle and at the angle that carries this current")
+        i_op = op.state.ia
+        a0 = conv["firing_angle_deg"]
+        if not conv["continuous"]:
+            at = (f"; at {here['firing_angle_deg']:.2f} deg it carries the requested {i_op:.1f} A with "
+                  f"current gaps" if pt["converged"] and not here["continuous"] else "")
             op.notes.append(
-                "discontinuous conduction: the firing angle from the continuous-conduction formula "
-                f"gives {run['mean_armature_current_A']:.1f} A mean in the switched model, not "
-                f"{op.state.ia:.1f} A"
+                f"discontinuous conduction: the firing angle from the continuous-conduction formula "
+                f"({a0:.2f} deg) gives {first['mean_armature_current_A']:.1f} A mean in the switched "
+                f"model, not {i_op:.1f} A" + at
+            )
+        elif pt["converged"] and abs(here["firing_angle_deg"] - a0) > 0.05:
+            op.notes.append(
+                f"the switched bridge needs {here['firing_angle_deg']:.2f} deg for {i_op:.1f} A; the "
+                f"continuous-conduction formula's {a0:.2f} deg gives {first['mean_armature_current_A']:.1f} A "
+                f"(the formula takes a ripple-free current; the overlap takes the current at the "
+                f"commutation instant, near the ripple's minimum)"
+            )
+        if not pt["converged"]:
+            op.notes.append(
+                f"the switched bridge did not reach {i_op:.1f} A within the firing range "
+                f"(last {here['firing_angle_deg']:.2f} deg, {here['mean_armature_current_A']:.1f} A)"
             )
     elif kind == "averaged_bridge":
         op.notes.append("averaged bridge: continuity is the ripple estimate (the averaged model has no ripple)")

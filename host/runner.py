@@ -19,6 +19,7 @@ import numpy as np
 from rtmodel import layout as L
 
 from . import signals as sig
+from .controller.protection import trip_label
 from .errors import DcrigError
 from .loop import REC_COLUMNS, R, HostLoop, jitter_table
 
@@ -105,7 +106,7 @@ class StatusLine:
                 f"  Ia={y[L.Y_IA_MEAN_A]:7.1f} A  If={y[L.Y_IF_A]:5.2f} A  Va={y[L.Y_VT_MEAN_V]:6.1f} V"
                 f"  alpha={y[L.Y_LAST_FIRE_ANGLE_DEG]:5.1f}  link {'LOST' if loop._link_lost else 'ok'}"
                 f" bad={bad} missed={loop.stats.missed_commands} late={loop.stats.deadline_misses}"
-                f"{'  TRIP ' + str(loop.last_cmd.trip_code) if loop.last_cmd.trip else ''}")
+                f"{'  TRIP ' + trip_label(loop.last_cmd.trip_code) if loop.last_cmd.trip else ''}")
         if self.tty:
             self.out.write("\r" + text[:150].ljust(150))
         else:

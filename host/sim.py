@@ -81,19 +81,22 @@ def _name_ok(name: str, where: str) -> None:
         raise ConfigError(f"{where}: unknown input '{name}'{more} (known: {', '.join(sorted(INPUTS))})")
 
 
-def parse_step(text: str) -> Segment:
-    """'NAME@T=VALUE', e.g. 'terminal_voltage_V@0.5=440'."""
+def parse_change(text: str, option: str = "--change") -> Segment:
+    """'NAME@T=VALUE', e.g. 'terminal_voltage_V@0.5=440': the input jumps to VALUE at T."""
     try:
         lhs, val = text.split("=", 1)
         name, t = lhs.split("@", 1)
         t_s = float(t)
         v = float(val)
     except ValueError as err:
-        raise ConfigError(f"--step: '{text}': expected NAME@TIME_S=VALUE, e.g. load_torque_Nm@1.5=4000") from err
-    _name_ok(name, "--step")
+        raise ConfigError(f"{option}: '{text}': expected NAME@TIME_S=VALUE, e.g. load_torque_Nm@1.5=4000") from err
+    _name_ok(name, option)
     if not (math.isfinite(t_s) and t_s >= 0 and math.isfinite(v)):
-        raise ConfigError(f"--step: '{text}': time must be >= 0 and values finite")
+        raise ConfigError(f"{option}: '{text}': time must be >= 0 and values finite")
     return Segment(name, t_s, t_s, v, v)
+
+
+parse_step = parse_change  # old name (the option was --step); kept while callers move over
 
 
 def parse_ramp(text: str) -> Segment:

@@ -41,8 +41,12 @@ step where they fall, so RK4's extra stages would be wasted. Stability needs dt 
 
 Switching events inside a step: a firing instant is taken in the step whose midpoint passes
 it (never early or late on average); when an overlap ends inside a step, the rest of that
-step gets the new circuit's DC-current slope (first order), so the mean bridge voltage does
-not sag in proportion to the step. Passive torques (Coulomb friction, a passive constant
+step gets the new circuit's DC-current slope and the new circuit's terminal voltage (first
+order, the same sub-step for both, so the step's mean voltage and input power obey the
+armature KVL with its current and do not sag in proportion to the step). When the DC current
+reaches zero inside a step, the step is flagged ST_DISCONTINUOUS (a gap shorter than a step
+never shows at a step start), and its mean voltage and power are those of the conducting part
+up to the zero, then the open-circuit voltage with no current. Passive torques (Coulomb friction, a passive constant
 load) are applied after each stage by _passive: they stop the shaft and hold it, exactly.
 The armature temperature takes one Euler step per call on the call's mean copper loss.
 """
@@ -414,6 +418,15 @@ def _passive(w0, w_free, dv):
         w = w_free + dv
         return w if w < 0.0 else 0.0
     return 0.0
+
+
+@njit(cache=True, inline="always")
+def _zero_fraction(i_start, i_end, f_phase):
+    """Fraction of a step at which a current that changed sign (or was cut at a device's
+    current zero, fraction f_phase) reached zero, taking it linear over the step."""
+    if i_start * i_end < 0.0:
+        return i_start / (i_start - i_end)
+    return f_phase
 
 
 BR_NONE = 0  # no bridge currents to integrate
@@ -993,6 +1006,12 @@ def step_frame(x, p, u, y, n_sub):
         tl = tl2
 
         # ---------------- after the step: thyristor turn-off, clamps, bookkeeping
+        # what the switching events below change in the step's terminal voltage: dv_rest is
+        # added to the step mean when the rest of the step after an overlap end gets the new
+        # circuit; f_cond < 1 is the fraction of the step the terminal current flowed before
+        # it reached zero inside the step (the rest of the step sits at the open-circuit voltage)
+        dv_rest = 0.0
+        f_cond = 1.0
         if is_bridge:
             newi = (pan, pbn, pcn)
             kp = 0
@@ -1084,6 +1103,13 @@ def step_frame(x, p, u, y, n_sub):
                 x[X_LAST_FIRED_UP] = -1.0
                 x[X_LAST_FIRED_LOW] = -1.0
                 if feeds:
+                    if i1 != 0.0:
+                        # the DC current reached zero inside this step: discontinuous
+                        # conduction even when the next firing falls at the next step's start
+                        # (a gap shorter than a step never shows at a step start)
+                        if not blocked:
+                            status |= ST_DISCONTINUOUS
+                        f_cond = _zero_fraction(i1, i1n, f_off)
                     i1n = 0.0
             else:
                 if feeds and f_off < 1.0:
@@ -1093,17 +1119,27 @@ def step_frame(x, p, u, y, n_sub):
                     # on average and the mean voltage sags in proportion to the step
                     up_o, un_o, kp_o, kn_o = _bridge_thevenin(rail0, rail1, rail2, va1, vb1, vc1, pan, pbn, pcn, rs)
                     up_n, un_n, kp_n, kn_n = _bridge_thevenin(ra_, rb_, rc_, va1, vb1, vc1, pan, pbn, pcn, rs)
-                    g1, g2, _v, _a, _s, _m, _e, _k, _t, _f = _machine(
+                    g1, g2, vt_o, _a, _s, _m, _e, _k, _t, _f = _machine(
                         p, cc, i1n, i2n, wn, ra, rse, rsh, TERM_THEVENIN, pol * (up_o - un_o), rth,
                         ls * (1.0 / kp_o + 1.0 / kn_o), 0.0, vsrc2_end, loop2_on,
                     )
-                    h1, h2_, _v, _a, _s, _m, _e, _k, _t, _f = _machine(
-                        p, cc, i1n, i2n, wn, ra, rse, rsh, TERM_THEVENIN, pol * (up_n - un_n), rth,
-                        ls * (1.0 / kp_n + 1.0 / kn_n), 0.0, vsrc2_end, loop2_on,
+                    lth_n = ls * (1.0 / kp_n + 1.0 / kn_n)
+                    vth_n = pol * (up_n - un_n)
+                    h1, h2_, vt_n, _a, _s, _m, _e, _k, _t, _f = _machine(
+                        p, cc, i1n, i2n, wn, ra, rse, rsh, TERM_THEVENIN, vth_n, rth, lth_n, 0.0,
+                        vsrc2_end, loop2_on,
                     )
                     rest = (1.0 - f_off) * dt
                     i1n += rest * (h1 - g1)
                     i2n += rest * (h2_ - g2)
+                    # the same sub-step in the terminal voltage: vt = s1 + r11 di1 + r12 di2 of
+                    # each circuit, so the voltage-seconds added match the current added through
+                    # the winding inductances (the step mean obeys the armature KVL); the step
+                    # ends in the new circuit, which the frame-end outputs then describe
+                    # (vth1, lth feed only the frame-end evaluation; the next step sets its own)
+                    dv_rest = (1.0 - f_off) * (vt_n - vt_o)
+                    vth1 = vth_n
+                    lth = lth_n
                 # keep KCL exact without a jump of the DC current: the integrated DC current
                 # stands, and each group's remaining devices absorb what a turn-off clipped
                 s_p = (pan if ra_ > 0 else 0.0) + (pbn if rb_ > 0 else 0.0) + (pcn if rc_ > 0 else 0.0)
@@ -1127,6 +1163,8 @@ def step_frame(x, p, u, y, n_sub):
             x[X_PH_I0 + 1] = pbn
             x[X_PH_I0 + 2] = pcn
         elif is_avg and term == TERM_THEVENIN and pol * i1n < 0.0:
+            if i1 != 0.0:
+                f_cond = _zero_fraction(i1, i1n, 1.0)
             i1n = 0.0
         if term == TERM_OPEN:
             i1n = 0.0
@@ -1152,13 +1190,21 @@ def step_frame(x, p, u, y, n_sub):
         s0 = s1
         c0 = c1
         x[X_TIME_S] += dt
-        vmean = 0.5 * (vt_start + vt)
+        if f_cond < 1.0:
+            # conducting part (trapezoid to the current zero, the voltage taken linear over the
+            # step), then the open-circuit voltage; power flows only in the conducting part
+            v_cond = vt_start + 0.5 * f_cond * (vt2 - vt_start)
+            vmean = f_cond * v_cond + (1.0 - f_cond) * vt
+            pin = f_cond * v_cond * 0.5 * i1
+        else:
+            vmean = 0.5 * (vt_start + vt) + dv_rest
+            pin = vmean * 0.5 * (i1 + i1n)
         x[X_PULSE_VINT] += vmean * dt
         x[X_PULSE_T_S] += dt
         x[X_VT_V] = vt
         sum_vt += vmean
         sum_ia += ia
-        sum_pin += vmean * 0.5 * (i1 + i1n)
+        sum_pin += pin
         sum_psh += tl * wn
         if abs(ia) > peak_ia:
             peak_ia = abs(ia)

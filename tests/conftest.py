@@ -7,9 +7,13 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from host.shipped import shipped_dir
+
 ROOT = Path(__file__).resolve().parents[1]
-MACHINES = ROOT / "configs" / "machines"
-CONVERTERS = ROOT / "configs" / "converters"
+# the demo plant's configs as dcrig ships them (host.shipped), not paths into the checkout
+MACHINES = shipped_dir("machines")
+CONVERTERS = shipped_dir("converters")
+CONTROLLERS = shipped_dir("controllers")
 
 
 @pytest.fixture(scope="session")

@@ -356,7 +356,7 @@ def simulate(m: Machine, s0, segments, t_eval, rtol=1e-9, atol=None, method="Rad
 # ----------------------------------------------------------------------------------------------
 # Harness: test-machine configs and segment runs of the compiled kernel
 # ----------------------------------------------------------------------------------------------
-# Invented test machines ("Harrowgate test bay"): small enough that every time constant is
+# Invented test machines (the Kestrel Bay workshop test bay): small enough that every time constant is
 # tens of milliseconds, so transients settle within a second of simulated time.
 _BASE = """
 [machine]
@@ -410,7 +410,7 @@ def machine_toml(conn: str, duty: str = "motor", compound: str = "cumulative", l
         curve = _SERIES_CURVE
     elif conn in (LONG_SHUNT, SHORT_SHUNT):
         field += "\nseries_resistance_ohm = 0.1\nseries_leakage_H = 0.001\nseries_turns_ratio = 0.002"
-    return _BASE.format(name=f"Harrowgate test {conn}", conn=conn, compound=compound, duty=duty,
+    return _BASE.format(name=f"Kestrel workshop test {conn}", conn=conn, compound=compound, duty=duty,
                         field=field, curve=curve, load=load)
 
 

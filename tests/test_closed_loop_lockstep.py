@@ -34,12 +34,13 @@ from host.controller.process import run_controller
 from host.link import HostSession, VirtualCable
 from host.loop import REC_COLUMNS, R, HostLoop
 from host.runner import Timeline, TimelineStep, settling_report
+from host.shipped import shipped_dir
 from rtmodel import layout as L
 
 from conftest import make_plant
 
 ROOT = Path(__file__).resolve().parents[1]
-CONTROLLERS = ROOT / "configs" / "controllers"
+CONTROLLERS = shipped_dir("controllers")
 
 pytestmark = pytest.mark.skipif(os.name != "posix", reason="virtual cables need pseudo-terminals")
 

@@ -25,6 +25,7 @@ import pytest
 
 from host import signals as sig
 from host.controller import TripCode, load_settings
+from host.controller.protection import TRIP_DETAIL_UNIT
 from host.loop import R
 
 from conftest import make_plant
@@ -67,8 +68,9 @@ def _check_trip(loop, summary, code):
     assert np.all(rows[:k, R["controller_trip"]] == 0)
     # both host events: the command's trip flag and the TripReport frame, with the code
     texts = [e for e in loop.events if e[1] == "trip"]
-    flag = [e for e in texts if e[2] == f"controller tripped, code {code}"]
-    report = [e for e in texts if e[2].startswith(f"trip report: code {code},")]
+    name = TripCode(code).name.lower()
+    flag = [e for e in texts if e[2] == f"controller tripped, code {code} ({name})"]
+    report = [e for e in texts if e[2].startswith(f"trip report: code {code} ({name}), detail ")]
     assert len(flag) == 1 and len(report) == 1, texts
     assert flag[0][0] == pytest.approx(rows[k, R["time_s"]], abs=1e-9)
     assert abs(report[0][0] - rows[k, R["time_s"]]) <= 2 * period_s + 1e-9
@@ -81,7 +83,9 @@ def _check_trip(loop, summary, code):
     first_block = int(np.argmax(bridge == sig.BRIDGE_BLOCKED))
     first_open = int(np.argmax(contactor == 0))
     assert first_open > first_block
-    detail = float(report[0][2].split("detail ")[1].split(",")[0])
+    value, unit = report[0][2].split("detail ")[1].split(",")[0].split(" ")
+    assert unit == TRIP_DETAIL_UNIT[TripCode(code)]  # the value is printed with its unit
+    detail = float(value)
     return k, detail
 
 

@@ -15,6 +15,7 @@ from pathlib import Path
 import pytest
 
 from host.cli import main
+from host.shipped import shipped_config
 
 ROOT = Path(__file__).resolve().parents[1]
 TIMEOUT_S = 240
@@ -60,12 +61,12 @@ def test_demo_runs_start_to_stop(kernel, tmp_path, capsys):
 
 def test_serve_on_tcp_with_controller_process(kernel, tmp_path):
     port = _free_port()
-    machine = ROOT / "configs" / "machines" / "kestrel_f3_stand.toml"
-    converter = ROOT / "configs" / "converters" / "kestrel_f3_dual.toml"
-    settings = ROOT / "configs" / "controllers" / "kestrel_f3_dual.toml"
+    machine = shipped_config("machines/kestrel_f3_stand.toml")
+    converter = shipped_config("converters/kestrel_f3_dual.toml")
+    settings = shipped_config("controllers/kestrel_f3_dual.toml")
     host = subprocess.Popen(
         [sys.executable, "-m", "host.cli", "serve", str(machine), "--converter", str(converter),
-         "--link", f"tcp-listen://127.0.0.1:{port}", "--lockstep", "--out", str(tmp_path / "serve")],
+         "--link", f"accept://127.0.0.1:{port}", "--lockstep", "--out", str(tmp_path / "serve")],
         env=_env(), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
     )
     try:
@@ -119,8 +120,8 @@ def test_sim_takes_a_bridge_voltage_profile(kernel, tmp_path, capsys):
     import math
 
     out_csv = tmp_path / "v.csv"
-    rc = main(["sim", str(ROOT / "configs/machines/kestrel_f3_stand.toml"), "--converter",
-               str(ROOT / "configs/converters/kestrel_f3_bridge.toml"), "--t-end", "0.2",
+    rc = main(["sim", str(shipped_config("machines/kestrel_f3_stand.toml")), "--converter",
+               str(shipped_config("converters/kestrel_f3_bridge.toml")), "--t-end", "0.2",
                "--set-input", "bridge_voltage_ref_V=300", "--out", str(out_csv), "--sample", "0.001"])
     assert rc == 0, capsys.readouterr().err
     with out_csv.open() as fh:
@@ -130,7 +131,7 @@ def test_sim_takes_a_bridge_voltage_profile(kernel, tmp_path, capsys):
 
 
 def test_sim_refuses_a_bridge_voltage_without_a_bridge(capsys):
-    rc = main(["sim", str(ROOT / "configs/machines/kestrel_f3_stand.toml"), "--t-end", "0.1",
+    rc = main(["sim", str(shipped_config("machines/kestrel_f3_stand.toml")), "--t-end", "0.1",
                "--set-input", "bridge_voltage_ref_V=300", "--out", "/tmp/never.csv"])
     err = capsys.readouterr().err
     assert rc == 2 and err.startswith("error: bridge_voltage_ref_V: needs a bridge converter")
@@ -156,7 +157,7 @@ def test_an_interrupted_run_keeps_what_it_recorded(kernel, tmp_path, capsys):
                 raise KeyboardInterrupt
 
     timeline = Interrupt([TimelineStep(0.1, "run"), TimelineStep(5.0, "stop")])
-    settings = ROOT / "configs" / "controllers" / "kestrel_f3_dual.toml"
+    settings = shipped_config("controllers/kestrel_f3_dual.toml")
     with VirtualCable() as cable:
         ctl = threading.Thread(target=run_controller, args=(cable.controller_link(), settings),
                                kwargs={"idle_timeout_s": 5.0}, daemon=True)

@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import math
 import tomllib
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -25,12 +24,12 @@ from scipy.optimize import brentq
 
 from host.config import load
 from host.params import pack
+from host.shipped import shipped_dir
 from host.sim import parse_ramp, run_offline
 from rtmodel import layout as L
 
-ROOT = Path(__file__).resolve().parents[1]
-MACHINES = ROOT / "configs" / "machines"
-CONVERTERS = ROOT / "configs" / "converters"
+MACHINES = shipped_dir("machines")
+CONVERTERS = shipped_dir("converters")
 RPM = math.pi / 30.0
 
 

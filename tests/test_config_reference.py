@@ -11,6 +11,8 @@ from pathlib import Path
 
 import pytest
 
+from host.shipped import shipped_dir
+
 ROOT = Path(__file__).resolve().parents[1]
 TOOL = ROOT / "tools" / "gen_config_reference.py"
 PAGE = ROOT / "docs" / "config-reference.md"
@@ -80,7 +82,8 @@ def _flat_keys(table: dict, prefix: str = "") -> list[str]:
     return out
 
 
-CONFIG_FILES = sorted((ROOT / "configs").glob("**/*.toml"))
+SHIPPED = shipped_dir()
+CONFIG_FILES = sorted(SHIPPED.glob("*/*.toml"))
 
 
 def test_there_are_demo_configs():
@@ -88,9 +91,9 @@ def test_there_are_demo_configs():
     assert {"machines", "converters"} <= kinds
 
 
-@pytest.mark.parametrize("path", CONFIG_FILES, ids=lambda p: str(p.relative_to(ROOT / "configs")))
+@pytest.mark.parametrize("path", CONFIG_FILES, ids=lambda p: str(p.relative_to(SHIPPED)))
 def test_every_key_used_in_configs_exists_in_a_schema(path):
-    known = _schema_paths(path.parent.relative_to(ROOT / "configs").parts[0])
+    known = _schema_paths(path.parent.relative_to(SHIPPED).parts[0])
     used = _flat_keys(tomllib.loads(path.read_text(encoding="utf-8")))
     unknown = [k for k in used if k not in known]
-    assert not unknown, f"{path.relative_to(ROOT)}: keys not in the schema: {unknown}"
+    assert not unknown, f"{path.relative_to(SHIPPED)}: keys not in the schema: {unknown}"

@@ -28,10 +28,10 @@ from host.cli import main
 from host.config import load
 from host.errors import ConfigError
 from host.params import pack
+from host.shipped import shipped_config, shipped_dir
 
-ROOT = Path(__file__).resolve().parents[1]
-MACHINES = ROOT / "configs" / "machines"
-CONVERTERS = ROOT / "configs" / "converters"
+MACHINES = shipped_dir("machines")
+CONVERTERS = shipped_dir("converters")
 F3 = MACHINES / "kestrel_f3_stand.toml"
 
 
@@ -287,7 +287,7 @@ CASES = [
 
 def _write_case(case: Case, tmp_path: Path) -> Path:
     kind_dir, stem = case.base.split("/")
-    src = ROOT / "configs" / kind_dir / f"{stem}.toml"
+    src = shipped_config(f"{kind_dir}/{stem}.toml")
     dst = tmp_path / f"{case.id}.toml"
     if case.raw is not None:
         dst.write_text(case.raw, encoding="utf-8")
@@ -305,7 +305,7 @@ def _paths(case: Case, tmp_path: Path) -> tuple[Path, Path | None, Path]:
     broken = _write_case(case, tmp_path)
     if case.base.startswith("converters/"):
         mkind, mstem = case.machine_for_converter.split("/")
-        return ROOT / "configs" / mkind / f"{mstem}.toml", broken, broken
+        return shipped_config(f"{mkind}/{mstem}.toml"), broken, broken
     return broken, None, broken
 
 
@@ -372,7 +372,7 @@ def test_every_demo_config_is_accepted(capsys):
     bases = {c.base for c in CASES} | {c.machine_for_converter for c in CASES}
     for base in sorted(bases):
         kind_dir, stem = base.split("/")
-        path = ROOT / "configs" / kind_dir / f"{stem}.toml"
+        path = shipped_config(f"{kind_dir}/{stem}.toml")
         argv = ["check", str(path)] if kind_dir == "machines" else ["check", str(F3), "--converter", str(path)]
         rc, out, err = _cli(capsys, argv)
         assert rc == 0, (base, err)
@@ -490,7 +490,7 @@ def test_debug_flag_shows_the_traceback_instead(tmp_path):
 
 def test_ignored_keys_are_warned_by_check(tmp_path, capsys):
     """A key the connection ignores is accepted but named by `dcrig check` (not refused)."""
-    src = (ROOT / "configs" / "machines" / "kestrel_shunt_fan.toml").read_text()
+    src = shipped_config("machines/kestrel_shunt_fan.toml").read_text()
     path = tmp_path / "fan.toml"
     path.write_text(src.replace("[machine]\n", "[machine]\nseries_turns_ratio = 0.01\n", 1))
     rc = main(["check", str(path)])

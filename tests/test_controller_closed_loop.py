@@ -9,14 +9,14 @@ once per pulse (common practice, no source).
 from __future__ import annotations
 
 import math
-from pathlib import Path
 
 import pytest
 
 from host.controller import DriveController, load_settings
+from host.shipped import shipped_dir
 from host.signals import BRIDGE_BLOCKED, BRIDGE_REVERSE, Command, Feedback
 
-CFG = Path(__file__).resolve().parents[1] / "configs" / "controllers"
+CFG = shipped_dir("controllers")
 DT = 1.0 / 300.0
 
 
@@ -117,7 +117,7 @@ def run(ctrl, plant, t_end_s, ref_rpm, trace=None, op_run=1, load_change=None):
 
 
 def mill():
-    s = load_settings(CFG / "harrowgate_mill_400kw.toml")
+    s = load_settings(CFG / "kestrel_bench_mill.toml")
     # the plant below has a voltage-fed field and flux linear in field current
     return s.replace({"field.mode": "voltage", "motor.magnetisation_if_pu": [0.0, 1.0],
                       "motor.magnetisation_phi_pu": [0.0, 1.0]})

@@ -1,15 +1,15 @@
-"""Sequencing, protections and dual-bridge changeover of the emulated drive controller,
+"""Start/stop order, protections and dual-bridge changeover of the emulated drive controller,
 driven by synthetic Feedback sequences (no plant)."""
 
 from __future__ import annotations
 
 import math
 import random
-from pathlib import Path
 
 import pytest
 
 from host.controller import DriveController, TripCode, load_settings
+from host.shipped import shipped_dir
 from host.signals import (
     BRIDGE_BLOCKED,
     BRIDGE_FORWARD,
@@ -19,7 +19,7 @@ from host.signals import (
     Feedback,
 )
 
-CFG = Path(__file__).resolve().parents[1] / "configs" / "controllers"
+CFG = shipped_dir("controllers")
 DT = 1.0 / 300.0
 MAX_FRAMES = 20000  # every loop below has this bound (a wait with a timeout)
 
@@ -28,7 +28,7 @@ NO_TACHO_CHECK = {"protection.tacho_loss.threshold_rpm": 1e6}  # isolates other 
 
 
 def mill(**changes):
-    s = load_settings(CFG / "harrowgate_mill_400kw.toml")
+    s = load_settings(CFG / "kestrel_bench_mill.toml")
     return s.replace(changes) if changes else s
 
 
@@ -92,7 +92,7 @@ def expected_frames(delay_s):
     return math.ceil(delay_s / DT - 1e-6)
 
 
-# ---- sequencing --------------------------------------------------------------------------------
+# ---- start and stop----------------------------------------------------------------------------
 def test_contactor_closes_before_pulses_and_pulses_wait_for_its_feedback():
     b = Bench(mill())
     b.contactor_follows = False
@@ -109,12 +109,12 @@ def test_contactor_closes_before_pulses_and_pulses_wait_for_its_feedback():
             break
     assert first is not None
     # the release delay counts from the first frame the contactor is seen closed
-    assert first == expected_frames(b.s["sequencing.pulse_release_delay_s"])
+    assert first == expected_frames(b.s["start_stop.pulse_release_delay_s"])
     assert c.contactor == 1
 
 
 def test_pulses_wait_for_the_field_and_a_weak_field_trips_at_start():
-    s = mill(**{"sequencing.field_establish_timeout_s": 0.5})
+    s = mill(**{"start_stop.field_establish_timeout_s": 0.5})
     b = Bench(s, field_current_A=2.0)
     k, cmd = frames_to_trip(b)
     assert cmd.trip_code == TripCode.FIELD_LOSS
@@ -147,14 +147,14 @@ def test_stop_ramps_down_blocks_pulses_then_opens_contactor_at_zero_current():
     assert seen[-2][0] == BRIDGE_BLOCKED and seen[-2][1] == 1
     assert seen[-3][0] != BRIDGE_BLOCKED
     # pulses blocked only after the current had fallen below the zero-current threshold
-    assert abs(seen[-2][2]) < b.s["sequencing.zero_current_A"]
+    assert abs(seen[-2][2]) < b.s["start_stop.zero_current_A"]
     # the ramp-down took (300 rpm) / (stop decel) within a frame or two
     n_down = sum(1 for x in seen if x[2] == 400.0)
     assert n_down * DT == pytest.approx(300.0 / b.s["ramp.stop_decel_rpm_per_s"], abs=3 * DT)
 
 
 def test_pulse_run_input_latches_until_stop():
-    b = Bench(mill(**{"sequencing.run_input": "pulse"}))
+    b = Bench(mill(**{"start_stop.run_input": "pulse"}))
     b.step(op_run=1)
     b.step(op_run=0)
     b.until(lambda c: b.c.signals.state == "running", 200)
@@ -465,7 +465,7 @@ def test_single_bridge_never_selects_reverse_nor_negative_current():
 
 
 def test_series_hoist_runs_without_field_loop():
-    s = load_settings(CFG / "harrowgate_hoist_30kw.toml")
+    s = load_settings(CFG / "kestrel_bench_hoist.toml")
     b = Bench(s, field_current_A=0.0, op_speed_ref_rpm=500.0).run_up()
     for _ in range(100):
         c = b.step(armature_current_A=100.0)

@@ -14,9 +14,10 @@ import pytest
 from host import signals as sig
 from host.controller import TripCode
 from host.controller.process import run_controller
+from host.shipped import shipped_config
 
 ROOT = Path(__file__).resolve().parents[1]
-SETTINGS = ROOT / "configs" / "controllers" / "harrowgate_mill_400kw.toml"
+SETTINGS = shipped_config("controllers/kestrel_bench_mill.toml")
 PERIOD_US = 3333
 
 pytestmark = pytest.mark.skipif(os.name != "posix", reason="virtual cables need pseudo-terminals")

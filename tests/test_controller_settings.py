@@ -11,11 +11,12 @@ import pytest
 from host.controller import DriveController
 from host.controller.settings import KEYS, REQUIRED, from_dict, load_settings
 from host.errors import ConfigError
+from host.shipped import shipped_dir
 
 ROOT = Path(__file__).resolve().parents[1]
-CFG = ROOT / "configs" / "controllers"
+CFG = shipped_dir("controllers")
 DOC = ROOT / "docs" / "controller.md"
-MILL = CFG / "harrowgate_mill_400kw.toml"
+MILL = CFG / "kestrel_bench_mill.toml"
 
 
 def _nested():
@@ -119,7 +120,7 @@ def test_cross_checks(changes, key):
 
 
 def test_series_motor_needs_no_field_section():
-    s = load_settings(CFG / "harrowgate_hoist_30kw.toml")
+    s = load_settings(CFG / "kestrel_bench_hoist.toml")
     assert s["motor.connection"] == "series"
     d = _nested()
     del d["field"]
@@ -142,3 +143,36 @@ def test_replace_revalidates():
     assert s.replace({"ramp.accel_rpm_per_s": 10.0})["ramp.accel_rpm_per_s"] == 10.0
     with pytest.raises(ConfigError, match="ramp.accel_rpm_per_s: must be > 0"):
         s.replace({"ramp.accel_rpm_per_s": 0.0})
+
+
+# ---- renamed keys: the old spelling is refused with one line naming the new one --------------
+def test_old_start_stop_section_name_is_refused_with_its_new_name():
+    d = _nested()
+    d["sequencing"] = d.pop("start_stop")
+    with pytest.raises(ConfigError) as e:
+        from_dict(d, "f.toml")
+    msg = str(e.value)
+    assert "\n" not in msg
+    assert re.fullmatch(r"f\.toml: sequencing\.\w+: renamed to start_stop\.\w+ "
+                        r"\(\[sequencing\] is now \[start_stop\]\), got .+", msg), msg
+
+
+def test_old_economy_field_key_is_refused_with_its_new_name():
+    d = _nested()
+    d["field"]["standby_fraction"] = d["field"].pop("economy_fraction", 0.3)
+    with pytest.raises(ConfigError) as e:
+        from_dict(d, "f.toml")
+    assert str(e.value) == "f.toml: field.standby_fraction: renamed to field.economy_fraction, got 0.3"
+
+
+def test_old_section_name_through_the_cli_exits_2_with_one_line(tmp_path):
+    import subprocess
+    import sys
+
+    old = tmp_path / "old.toml"
+    old.write_text(MILL.read_text().replace("[start_stop]", "[sequencing]"))
+    p = subprocess.run([sys.executable, "-m", "host.cli", "controller", "--link", str(tmp_path / "no-port"),
+                        "--settings", str(old)], cwd=ROOT, capture_output=True, text=True, timeout=60)
+    assert p.returncode == 2, p.stderr
+    lines = p.stderr.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith(f"error: {old}: sequencing.") and "renamed to start_stop." in lines[0]

@@ -591,3 +591,126 @@ def test_shorted_thyristor_gives_a_line_to_line_fault_current(kernel):
     assert peak > 5 * i_dc
     assert kcl < 1e-6 * peak
     assert out[:, 0].min() >= 0.0  # a single bridge cannot carry negative DC current
+
+
+# ---- 11. mean voltage at the step where an overlap ends -----------------------------------------
+# When an overlap ends inside a step, the rest of that step belongs to the new circuit. Its
+# current and its voltage must both be accounted to it: a kernel that gave the current the new
+# slope but kept the overlap voltage for the whole step read the mean terminal voltage (and the
+# input power) low by up to ~1 % at 20 us, while its current said otherwise.
+def _whole_cycles(r, n_cycles):
+    """Frame means over whole mains cycles, one kernel call per cycle (no ripple-phase bias).
+
+    Returns (V mean, Ia mean, E mean, P_in mean, inductive term La (i_end - i_start) / T, flags).
+    """
+    n = int(round(1.0 / (F_HZ * r.dt)))
+    i_start = r.x[L.X_I_LINE_A]
+    v, i, e, pw = [], [], [], []
+    st = 0
+    for _ in range(n_cycles):
+        st |= int(r.k(r.x, r.p, r.u, r.y, n))
+        v.append(r.y[L.Y_VT_MEAN_V])
+        i.append(r.y[L.Y_IA_MEAN_A])
+        e.append(r.y[L.Y_EMF_V])
+        pw.append(r.y[L.Y_INPUT_POWER_W])
+    t = n_cycles * n * r.dt
+    l_term = r.p[L.P_LA_H] * (r.x[L.X_I_LINE_A] - i_start) / t
+    return np.mean(v), np.mean(i), np.mean(e), np.mean(pw), l_term, st
+
+
+@pytest.mark.parametrize("alpha_deg", [30, 45, 60, 75, 105, 120, 135])
+def test_mean_voltage_obeys_the_armature_kvl_at_20us(kernel, alpha_deg):
+    # Armature KVL averaged over whole cycles of a periodic steady state (any machines text,
+    # e.g. Chapman, Electric Machinery Fundamentals: Vt = E + Ra Ia + Vbrush; the La di/dt
+    # term averages to zero, and is measured here to show that it does). Same run, default
+    # 20 us step, stock commutating inductance (60 uH: each overlap spans ~5 steps, so an
+    # overlap ends inside a step at every commutation). Issue 7: to 0.1 %.
+    r = Rig(kernel, TEST_LOAD)
+    r.set_emf(emf_for(alpha_deg, 400.0, ls_H=60e-6))
+    r.u[L.U_ALPHA_DEG] = alpha_deg
+    r.settle(0.25)
+    i_min = r.cycles(1)[:, 1].min()
+    vm, im, e, p_in, l_term, st = _whole_cycles(r, 5)
+    kvl = e + R_TEST * im + BRUSH_V
+    err = (vm - kvl) / abs(kvl)
+    print(f"alpha {alpha_deg}: Vmean {vm:.3f} V, E + Ra Ia + Vb {kvl:.3f} V ({100 * err:+.4f} %), "
+          f"La di/dt term {l_term:+.4f} V, Id {im:.1f} A (min {i_min:.1f} A)")
+    # continuous conduction above the brush knee, so the brush drop is the full 2 V throughout
+    assert not st & L.ST_DISCONTINUOUS and i_min > BRUSH_KNEE_A
+    assert abs(l_term) < 1e-4 * abs(kvl)
+    assert abs(err) < 1e-3
+
+
+@pytest.mark.parametrize("alpha_deg", [30, 75, 105, 135])
+def test_input_power_obeys_the_energy_balance_at_20us(kernel, alpha_deg):
+    # Energy balance of the armature over whole cycles (from Vt = E + R i + Vb + La di/dt
+    # times i; La i di/dt integrates to zero in a periodic steady state): mean Vt i equals
+    # E mean(i) + R mean(i^2) + Vb mean(i). mean(i^2) from the step-end currents of one cycle.
+    r = Rig(kernel, TEST_LOAD)
+    r.set_emf(emf_for(alpha_deg, 400.0, ls_H=60e-6))
+    r.u[L.U_ALPHA_DEG] = alpha_deg
+    r.settle(0.25)
+    n = int(round(1.0 / (F_HZ * r.dt)))
+    i0 = r.x[L.X_I_LINE_A]
+    out = r.record(n * r.dt, cols=(L.Y_I_LINE_A, L.Y_INPUT_POWER_W, L.Y_EMF_V))
+    i_end = out[:, 0]
+    i_beg = np.concatenate([[i0], i_end[:-1]])
+    i_mean = 0.5 * (i_beg + i_end).mean()
+    i2_mean = ((i_beg * i_beg + i_beg * i_end + i_end * i_end) / 3.0).mean()  # i linear in a step
+    p_in = out[:, 1].mean()
+    balance = out[:, 2].mean() * i_mean + R_TEST * i2_mean + BRUSH_V * i_mean
+    err = (p_in - balance) / abs(balance)
+    print(f"alpha {alpha_deg}: P_in {p_in / 1e3:.3f} kW, E I + R I^2 + Vb I {balance / 1e3:.3f} kW "
+          f"({100 * err:+.4f} %)")
+    assert not flags(out) & L.ST_DISCONTINUOUS
+    assert abs(err) < 1e-3
+
+
+@pytest.mark.parametrize("ls_H", [60e-6, 200e-6])
+@pytest.mark.parametrize("dt_us", [20.0, 5.0])
+@pytest.mark.parametrize("alpha_deg", [15, 45, 75, 90, 105, 135])
+def test_mean_voltage_follows_mohan_with_overlap_at_the_default_step(kernel, alpha_deg, dt_us, ls_H):
+    # Mohan, Undeland, Robbins, Power Electronics (three-phase fully controlled bridge with
+    # commutating inductance): Vd = (3 sqrt2 / pi) V_LL cos(alpha) - (3/pi) w Ls Id, here at the
+    # default 20 us step and at 5 us, with overlaps of ~2 and ~5 deg (Rs = 0 as in the formula).
+    # The formula takes Id free of ripple; La = 50 mH keeps the ripple to a few amperes, so its
+    # own effect on the overlap (the current at the commutation instant is not the mean) stays
+    # near 0.03 % of Vdo. The earlier kernel read up to 0.3 % of Vdo low at 20 us.
+    r = Rig(kernel, ("machine.ra_ohm=0.25", "machine.la_H=0.05", f"mains.inductance_H={ls_H}",
+                     "mains.resistance_ohm=0", "bridge.alpha_max_deg=150"), dt_us=dt_us)
+    r.set_emf(emf_for(alpha_deg, 400.0, ls_H=ls_H))
+    r.u[L.U_ALPHA_DEG] = alpha_deg
+    r.settle(2.0, frame=5000)  # ten loop time constants (La / R = 0.2 s)
+    vm, im, _e, _p, _l, st = _whole_cycles(r, 5)
+    vd = VDO * math.cos(math.radians(alpha_deg)) - 3 / math.pi * W * ls_H * im
+    err = (vm - vd) / VDO
+    print(f"alpha {alpha_deg}, {dt_us} us, Ls {1e6 * ls_H:.0f} uH: Vmean {vm:.3f} V, formula {vd:.3f} V, "
+          f"error {100 * err:+.4f} % of Vdo, Id {im:.1f} A")
+    assert not st & L.ST_DISCONTINUOUS
+    assert abs(err) < 5e-4
+
+
+@pytest.mark.parametrize("i_frac", [0.7, 0.8, 0.9])
+def test_a_current_zero_inside_a_step_is_flagged(kernel, i_frac):
+    # Just below the edge of continuous conduction the current gap lasts less than a step: the
+    # current reaches zero inside one step and the next firing falls at the start of the next,
+    # so no step starts without a conducting pair. Every step that ends at zero current must
+    # carry the discontinuous-conduction bit itself. The EMF is set for i_frac of the edge
+    # current by the continuous-conduction formula (the switched bridge then carries somewhat
+    # more: its mean voltage rises in the gaps). Edge of the 6-pulse bridge with R and overlap
+    # neglected, I_crit = (sqrt2 V_LL / (w L)) (3/pi - sqrt3/2) sin(alpha) for alpha above
+    # ~10 deg (derived in tests/test_op_converter.py, icrit_closed_form).
+    alpha = 60.0
+    l_loop = L_TEST + 2 * 60e-6
+    i_crit = SQ2 * VLL / (W * l_loop) * (3 / math.pi - math.sqrt(3) / 2) * math.sin(math.radians(alpha))
+    r = Rig(kernel, TEST_LOAD)
+    r.set_emf(emf_for(alpha, i_frac * i_crit, ls_H=60e-6))
+    r.u[L.U_ALPHA_DEG] = alpha
+    r.settle(0.2)
+    out = r.cycles(2)
+    zero_end = out[:, 1] == 0.0
+    flagged = (out[:, -1].astype(int) & L.ST_DISCONTINUOUS) != 0
+    print(f"{i_frac} I_crit ({i_crit:.1f} A): mean {out[:, 1].mean():.1f} A, {zero_end.sum()} steps end at "
+          f"zero, {flagged.sum()} flagged, {(zero_end & ~flagged).sum()} of them unflagged")
+    assert zero_end.sum() >= 6  # at least one gap per pulse in two cycles
+    assert np.all(flagged[zero_end])

@@ -121,8 +121,8 @@ def test_trip_and_control_round_trip_both_encodings():
         c = F.Codec(enc)
         t = c.unpack(c.pack_trip(S.TripReport(trip_code=12, controller_time_us=123456789, detail=4567.25), 7))
         assert t == S.TripReport(12, 123456789, 4567.25)
-        m = c.unpack(c.pack_control(S.ControlMessage(S.CTRL_SET_SPEED_REF_RPM, -750.5, "Harrowgate stand 3 ✓"), 9))
-        assert m == S.ControlMessage(S.CTRL_SET_SPEED_REF_RPM, -750.5, "Harrowgate stand 3 ✓")
+        m = c.unpack(c.pack_control(S.ControlMessage(S.CTRL_SET_SPEED_REF_RPM, -750.5, "Kestrel Bay F3 ✓"), 9))
+        assert m == S.ControlMessage(S.CTRL_SET_SPEED_REF_RPM, -750.5, "Kestrel Bay F3 ✓")
 
 
 def test_control_text_is_clipped_on_a_character_boundary():

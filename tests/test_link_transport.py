@@ -1,4 +1,4 @@
-"""Transports (host.link.transport): pty virtual cable, TCP listen on 127.0.0.1, loop://,
+"""Transports (host.link.transport): pty virtual cable, accept:// (TCP listening) on 127.0.0.1, loop://,
 pyserial socket:// as the TCP client, URL errors, USB latency timer."""
 
 import os
@@ -10,10 +10,10 @@ import warnings
 import pytest
 
 from host import signals as S
-from host.errors import LinkError
+from host.errors import ConfigError, LinkError
 from host.link import transport as tr
 from host.link.session import HostSession
-from host.link.transport import LinkWarning, TcpListenLink, VirtualCable, open_link
+from host.link.transport import AcceptLink, LinkWarning, VirtualCable, open_link
 from host.link.wire import encode_wire
 
 T = 5.0
@@ -111,9 +111,9 @@ def test_pty_write_times_out_when_nobody_reads():
                 host.send_frame(b"\x13\x00\x00" + b"x" * 500)
 
 
-def test_tcp_listen_on_loopback_with_pyserial_socket_client():
-    with open_link("tcp-listen://127.0.0.1:0") as srv:
-        assert isinstance(srv, TcpListenLink)
+def test_accept_on_loopback_with_pyserial_socket_client():
+    with open_link("accept://127.0.0.1:0") as srv:
+        assert isinstance(srv, AcceptLink)
         host, port = srv.address
         assert host == "127.0.0.1"
         srv.send_frame(b"\x13\x00\x00lost")  # nobody connected yet: dropped like on a dead line
@@ -133,8 +133,8 @@ def test_tcp_listen_on_loopback_with_pyserial_socket_client():
         assert srv.connects == 2
 
 
-def test_tcp_listen_defaults_to_loopback():
-    with open_link("tcp-listen://:0") as srv:
+def test_accept_defaults_to_loopback():
+    with open_link("accept://:0") as srv:
         assert srv.address[0] == "127.0.0.1"
 
 
@@ -162,8 +162,8 @@ def test_loop_url_round_trip_and_resync():
         ("loop://", {"baud": 10}, "link 'loop://': baud 10: must be from 50 to 12000000"),
         ("loop://", {"baud": 9600.5}, "baud 9600.5: must be a whole number"),
         ("loop://", {"parity": "X"}, "link 'loop://': parity 'X': must be N, E or O"),
-        ("tcp-listen://127.0.0.1", {}, "must name a port"),
-        ("tcp-listen://127.0.0.1:99999", {}, "address"),
+        ("accept://127.0.0.1", {}, "must name a port"),
+        ("accept://127.0.0.1:99999", {}, "address"),
         ("", {}, "url: must be a port path or a URL"),
         ("pty://x", {}, "pty:// takes no path"),
         ("socket://127.0.0.1:notaport", {}, "cannot open"),
@@ -174,6 +174,13 @@ def test_open_link_errors_are_one_line_link_errors(url, kw, msg):
         open_link(url, **kw)
     text = str(info.value)
     assert msg in text and "\n" not in text
+
+
+def test_old_tcp_listen_scheme_is_refused_with_its_new_name():
+    with pytest.raises(ConfigError) as info:
+        open_link("tcp-listen://127.0.0.1:5020")
+    assert str(info.value) == ("--link: tcp-listen://: renamed to accept:// (use accept://127.0.0.1:5020), "
+                               "got 'tcp-listen://127.0.0.1:5020'")
 
 
 def test_open_link_accepts_parity_words():

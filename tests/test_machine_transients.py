@@ -14,6 +14,7 @@ import pytest
 
 import reference_models as R
 from host.config import load
+from host.shipped import shipped_dir
 from rtmodel import layout as L
 
 RPM = R.RPM
@@ -127,7 +128,7 @@ def test_generating_load_switching_with_prime_mover(kernel, tmp_path, conn, comp
     assert np.all(Y[1:, L.Y_SPEED_RAD_S] == w)
 
 
-DEMO = sorted(p.stem for p in (R.Path(__file__).resolve().parents[1] / "configs" / "machines").glob("*.toml"))
+DEMO = sorted(p.stem for p in shipped_dir("machines").glob("*.toml"))
 assert DEMO, "no machine configs found"
 
 

@@ -79,8 +79,11 @@ def plant(tmp_path, kind="bridge", overrides=()):
     return pack(load("machine", m, list(overrides)), load("converter", c))
 
 
-def solve(pl, t_load, vt=150.0, use_kernel=True):
-    op = opoint.solve_motor(pl, vt, load_torque_Nm=t_load)
+def solve(pl, t_load, vt=150.0, use_kernel=True, ia=None):
+    if ia is None:
+        op = opoint.solve_motor(pl, vt, load_torque_Nm=t_load)
+    else:
+        op = opoint.solve_motor(pl, vt, armature_current_A=ia)
     return opoint.with_converter(op, use_kernel=use_kernel)
 
 
@@ -164,3 +167,100 @@ def test_kernel_switched_bridge_mean_current_is_step_independent(kernel):
         currents.append(opoint.kernel_bridge_run(op)["mean_armature_current_A"])
     rated = 1040.0
     assert abs(currents[0] - currents[1]) < 0.01 * rated, currents
+
+
+# ---- edge of continuous conduction --------------------------------------------------------------
+def icrit_closed_form(v_ll_V, f_Hz, l_H, alpha_rad):
+    """Edge of continuous conduction of the 6-pulse bridge on an R-L-E load, R and overlap
+    neglected (the current is small there).
+
+    Over each 60 deg interval the DC side sees one line voltage, sqrt2 V_LL sin(phi) for phi
+    in [pi/3 + a, 2 pi/3 + a] (Mohan, Undeland, Robbins, Power Electronics, the 6-pulse
+    bridge's DC voltage waveform), against E = (3 sqrt2 / pi) V_LL cos(a) at the edge, so
+    w L di/dphi = v - E. Where the current rises at the firing instant,
+    sin(a) / 2 > (3/pi - sqrt3/2) cos(a) (a above ~10.1 deg), it is lowest there; when that
+    minimum just touches zero the mean is
+        I_crit = (sqrt2 V_LL / (w L)) (3/pi - sqrt3/2) sin(a).
+    Closed form derived here by that textbook method (from memory, not looked up); host.opoint
+    integrates the same interval numerically, so the two are checked against each other.
+    """
+    assert 0.5 * math.sin(alpha_rad) > (3 / math.pi - math.sqrt(3) / 2) * math.cos(alpha_rad)
+    return math.sqrt(2) * v_ll_V / (2 * math.pi * f_Hz * l_H) * (3 / math.pi - math.sqrt(3) / 2) * math.sin(alpha_rad)
+
+
+@pytest.mark.parametrize("alpha_deg", [15.0, 30.0, 60.0, 90.0, 120.0, 150.0])
+def test_edge_current_estimate_matches_the_closed_form(alpha_deg):
+    a = math.radians(alpha_deg)
+    got = opoint.critical_current_A(V_LL, F_HZ, 0.021, a)
+    ref = icrit_closed_form(V_LL, F_HZ, 0.021, a)
+    assert got == pytest.approx(ref, rel=1e-4)
+
+
+def _op_at_fraction_of_edge(pl, frac, vt=150.0):
+    """op at frac x the edge current for its own firing angle (the angle moves a little with
+    the current through the overlap drop: fixed point)."""
+    ia = 1.0
+    for _ in range(20):
+        op = solve(pl, None, vt=vt, use_kernel=False, ia=ia)
+        l_loop = op.converter["loop_inductance_H"]
+        i_edge = icrit_closed_form(V_LL, F_HZ, l_loop, math.radians(op.converter["firing_angle_deg"]))
+        ia = frac * i_edge
+    return ia, i_edge
+
+
+def _switched_trace(op, alpha_deg, kernel):
+    """Step-end line currents over one mains cycle of the kernel at op's speed and alpha_deg."""
+    import numpy as np
+    from rtmodel import layout as L
+
+    p, x, u = opoint._bridge_run_setup(op)
+    u[L.U_ALPHA_DEG] = alpha_deg
+    y = np.zeros(L.N_OUTPUT)
+    n = int(round(1.0 / F_HZ / op.plant.dt_s))
+    for _ in range(20):  # 0.4 s, twenty loop time constants
+        kernel(x, p, u, y, n)
+    trace = np.empty(n)
+    for j in range(n):
+        kernel(x, p, u, y, 1)
+        trace[j] = y[L.Y_I_LINE_A]
+    return trace
+
+
+@pytest.mark.parametrize("frac", [0.8, 0.9, 0.95])
+def test_op_reports_discontinuous_conduction_below_the_edge(tmp_path, kernel, frac):
+    # Issue 7: below the edge current the point is in discontinuous conduction, and op must
+    # say so whenever its switched run shows gaps, also gaps shorter than the 20 us step.
+    pl = plant(tmp_path, "bridge", ["sim.dt_us=20.0"])
+    ia, i_edge = _op_at_fraction_of_edge(pl, frac)
+    op = solve(pl, None, ia=ia)
+    conv = op.converter
+    here = conv["kernel_at_op_current"]
+    first = conv["kernel"]
+    print(f"{frac} x edge {i_edge:.3f} A = {ia:.3f} A: formula angle {conv['firing_angle_deg']:.2f} deg gives "
+          f"{first['mean_armature_current_A']:.3f} A (continuous {first['continuous']}); switched bridge "
+          f"{here['firing_angle_deg']:.2f} deg gives {here['mean_armature_current_A']:.3f} A "
+          f"(continuous {here['continuous']}); notes {op.notes}")
+    # the switched run at op's own point carries op's current (within the firing-angle grid)
+    assert here["mean_armature_current_A"] == pytest.approx(ia, rel=0.02)
+    # and it shows current gaps, seen independently in its step-end current
+    trace = _switched_trace(op, here["firing_angle_deg"], kernel)
+    assert (trace == 0.0).sum() >= 6, "expected a gap in every pulse"
+    assert conv["continuous"] is False
+    rep = op.report()
+    assert rep["continuous"] is False
+    note = [n for n in rep["notes"] if n.startswith("discontinuous conduction")]
+    assert note and f"{first['mean_armature_current_A']:.1f} A" in note[0]
+
+
+@pytest.mark.parametrize("frac", [1.2, 2.0])
+def test_op_reports_continuous_conduction_above_the_edge(tmp_path, kernel, frac):
+    pl = plant(tmp_path, "bridge", ["sim.dt_us=20.0"])
+    ia, _ = _op_at_fraction_of_edge(pl, frac)
+    op = solve(pl, None, ia=ia)
+    here = op.converter["kernel_at_op_current"]
+    print(f"{frac} x edge = {ia:.3f} A: switched {here['firing_angle_deg']:.2f} deg, "
+          f"{here['mean_armature_current_A']:.3f} A; notes {op.notes}")
+    # at 20 us the firing grid moves the current in stairs of ~0.1 A at this light load
+    assert here["mean_armature_current_A"] == pytest.approx(ia, rel=0.05)
+    assert op.converter["continuous"] is True
+    assert _switched_trace(op, here["firing_angle_deg"], kernel).min() > 0.0

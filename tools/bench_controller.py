@@ -19,6 +19,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 from host.controller.drive import DriveController  # noqa: E402
 from host.controller.settings import load_settings
 from host.errors import DcrigError
+from host.shipped import shipped_dir
 from host.signals import Feedback
 
 DT = 1.0 / 300.0
@@ -51,8 +52,7 @@ def measure(path, frames: int, clock=time.perf_counter_ns) -> dict:
 
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(prog="python -m host.controller.timing")
-    root = Path(__file__).resolve().parents[2]
-    ap.add_argument("settings", nargs="*", default=sorted((root / "configs" / "controllers").glob("*.toml")))
+    ap.add_argument("settings", nargs="*", default=sorted(shipped_dir("controllers").glob("*.toml")))
     ap.add_argument("--frames", type=int, default=30000)
     args = ap.parse_args(argv)
     try:

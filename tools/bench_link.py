@@ -50,13 +50,14 @@ from host.errors import DcrigError  # noqa: E402
 from host.link import Codec, HostSession, VirtualCable, cobs_encode, crc16  # noqa: E402
 from host.link.frames import ENC_FIXED, ENC_FLOAT32, ENCODING_NAMES  # noqa: E402
 from host.params import pack  # noqa: E402
+from host.shipped import shipped_config  # noqa: E402
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from bench_model import cpu_model, load_avg  # noqa: E402  (shared report helpers)
 
-MACHINE = ROOT / "configs" / "machines" / "kestrel_f3_stand.toml"
-CONVERTER = ROOT / "configs" / "converters" / "kestrel_f3_dual.toml"
-SETTINGS = ROOT / "configs" / "controllers" / "kestrel_f3_dual.toml"
+MACHINE = shipped_config("machines/kestrel_f3_stand.toml")
+CONVERTER = shipped_config("converters/kestrel_f3_dual.toml")
+SETTINGS = shipped_config("controllers/kestrel_f3_dual.toml")
 BAUDS = (115_200, 921_600, 3_000_000)
 TARGET_LOCKSTEP_OF_ECHO = 0.80
 TARGET_WORK_P99_US = 100.0

@@ -45,10 +45,11 @@ if str(ROOT) not in sys.path:
 from host.config import load  # noqa: E402
 from host.errors import DcrigError  # noqa: E402
 from host.params import pack  # noqa: E402
+from host.shipped import shipped_dir  # noqa: E402
 from rtmodel import layout as L  # noqa: E402
 
-MACHINES = ROOT / "configs" / "machines"
-CONVERTERS = ROOT / "configs" / "converters"
+MACHINES = shipped_dir("machines")
+CONVERTERS = shipped_dir("converters")
 C_SOURCE = ROOT / "tools" / "bench_c" / "sep_heun.c"  # the plain anchor, cc -O2
 C_TUNED_SEP = ROOT / "tools" / "bench_c" / "sep_tuned.c"  # the tuned references, cc -O3
 C_TUNED_BRIDGE = ROOT / "tools" / "bench_c" / "bridge_tuned.c"

@@ -24,7 +24,8 @@ sys.path.insert(0, str(ROOT))
 
 from host.config import load  # noqa: E402
 from host.params import pack  # noqa: E402
-from host.sim import parse_ramp, parse_step, plot, run_offline  # noqa: E402
+from host.shipped import shipped_config  # noqa: E402
+from host.sim import parse_change, parse_ramp, plot, run_offline  # noqa: E402
 from rtmodel import layout as L  # noqa: E402
 
 CASES = [
@@ -49,10 +50,10 @@ CASES = [
 
 def run_case(case, out: Path) -> dict:
     machine, conv, m_over, c_over, steps, ramps, t_end = case
-    m = load("machine", ROOT / "configs" / "machines" / f"{machine}.toml", m_over)
-    c = load("converter", ROOT / "configs" / "converters" / f"{conv}.toml", c_over)
+    m = load("machine", shipped_config(f"machines/{machine}.toml"), m_over)
+    c = load("converter", shipped_config(f"converters/{conv}.toml"), c_over)
     plant = pack(m, c)
-    segs = [parse_step(s) for s in steps] + [parse_ramp(r) for r in ramps]
+    segs = [parse_change(s) for s in steps] + [parse_ramp(r) for r in ramps]
     t, Y = run_offline(plant, t_end, plant.dt_s * 5, segs)
     st = Y[:, L.Y_STATUS].astype(int)
     dcm = (st & L.ST_DISCONTINUOUS) != 0

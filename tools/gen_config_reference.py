@@ -83,7 +83,9 @@ meaning says what is used instead); otherwise the value used when the key is abs
 
 > CAUTION: a valid config describes a model, not a safe machine. An unloaded series motor
 > runs away; a shunt motor that loses its field overspeeds. Never take protection settings
-> for a real drive from a simulation.
+> for a real drive from a simulation. Follow local electrical codes and licensed practice,
+> and leave the wiring, energising and protection of a real drive to a qualified person;
+> nothing in dcrig replaces them.
 
 Controller settings (configs/controllers/*.toml) have their own page, docs/controller.md.
 """

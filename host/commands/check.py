@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 import math
 
+from ..cli import SAFETY
 from . import add_config_args, load_plant
 
 EXAMPLE = """example:
@@ -18,7 +19,7 @@ def add_subparser(sub):
     p = sub.add_parser("check", help="validate configs and print derived quantities",
                        description="Validate a machine (and converter) config and print rated EMF, flux constant, "
                        "time constants, no-load speed, critical field resistance, step limits and warnings.",
-                       epilog=EXAMPLE, formatter_class=argparse.RawDescriptionHelpFormatter)
+                       epilog=EXAMPLE + "\n" + SAFETY, formatter_class=argparse.RawDescriptionHelpFormatter)
     add_config_args(p)
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=_do_check)

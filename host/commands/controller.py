@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import argparse
 
+from ..cli import SAFETY
+
 EXAMPLE = """example:
   dcrig controller --link /dev/pts/7 --settings configs/controllers/kestrel_f3_stand.toml
 
@@ -17,7 +19,7 @@ def add_subparser(sub):
     p = sub.add_parser("controller", help="run the emulated drive controller on a link",
                        description="Run the emulated thyristor drive controller (speed, current and field loops, "
                        "dual-bridge changeover, protections) against a dcrig host on a link.",
-                       epilog=EXAMPLE, formatter_class=argparse.RawDescriptionHelpFormatter)
+                       epilog=EXAMPLE + "\n" + SAFETY, formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("--link", required=True, metavar="URL", help="port path or URL (pty slave path, socket://127.0.0.1:PORT, ...)")
     p.add_argument("--settings", required=True, metavar="SETTINGS.toml", help="controller settings (docs/controller.md)")
     p.add_argument("--encoding", choices=("fixed", "float32"), help="expected encoding (default: whatever the host offers)")
@@ -29,11 +31,12 @@ def add_subparser(sub):
 
 def _do_controller(args):
     from ..controller.process import run_controller
+    from ..controller.protection import trip_label
 
     summary = run_controller(args.link, args.settings, encoding=args.encoding,
                              handshake_timeout_s=args.handshake_timeout, idle_timeout_s=args.idle_timeout)
     if not args.quiet:
         trips = summary.get("trips") or []
         print(f"controller: {summary.get('frames', 0)} frames, end: {summary.get('reason', '?')}, "
-              f"trips: {', '.join(str(t.trip_code) for t in trips) if trips else 'none'}")
+              f"trips: {', '.join(trip_label(t.trip_code) for t in trips) if trips else 'none'}")
     return 0

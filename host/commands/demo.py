@@ -8,18 +8,34 @@ import subprocess
 import sys
 from pathlib import Path
 
-from ..cli import SAFETY
+from ..cli import DEFER_TO_CODES, SAFETY
 from ..errors import ConfigError, LinkError
 
-ROOT = Path(__file__).resolve().parents[2]
-DEFAULT_MACHINE = ROOT / "configs" / "machines" / "kestrel_f3_stand.toml"
-DEFAULT_CONVERTER = ROOT / "configs" / "converters" / "kestrel_f3_dual.toml"
-DEFAULT_CONTROLLER = ROOT / "configs" / "controllers" / "kestrel_f3_dual.toml"
+# the folder that holds the host package: the checkout root, or site-packages when installed;
+# the controller process gets it on its path so it runs this same copy of dcrig
+CODE_ROOT = Path(__file__).resolve().parents[2]
+# shipped demo plant configs (host.shipped), by their names inside the configs folder
+DEFAULT_MACHINE = "machines/kestrel_f3_stand.toml"
+DEFAULT_CONVERTER = "converters/kestrel_f3_dual.toml"
+DEFAULT_CONTROLLER = "controllers/kestrel_f3_dual.toml"
 
 EXAMPLE = """examples:
   dcrig demo                       # F3 stand motor, lockstep, outputs in ./dcrig-demo/
   dcrig demo --paced --out /tmp/f3 # the same at the wall-clock frame rate
+
+The demo plant's configs (the invented Kestrel Bay mill) ship with dcrig, in
+  {where}
+(in Python: host.shipped.shipped_config("machines/kestrel_f3_stand.toml") -> its path).
 """
+
+
+def _shipped_where() -> str:
+    from ..shipped import shipped_dir
+
+    try:
+        return str(shipped_dir())
+    except ConfigError as err:  # a broken install: say so in the help, fail only when run
+        return f"(not found: {err})"
 
 
 def add_subparser(sub):
@@ -27,10 +43,11 @@ def add_subparser(sub):
                        description="Run the host and the emulated drive controller (a separate process) over a "
                        "pseudo-terminal pair: field up, start, accelerate to rated speed, load step, stop. "
                        "Prints a summary and writes the frame record, events and a plot.",
-                       epilog=EXAMPLE + "\n" + SAFETY, formatter_class=argparse.RawDescriptionHelpFormatter)
-    p.add_argument("--machine", default=str(DEFAULT_MACHINE), metavar="MACHINE.toml")
-    p.add_argument("--converter", default=str(DEFAULT_CONVERTER), metavar="CONVERTER.toml")
-    p.add_argument("--settings", default=str(DEFAULT_CONTROLLER), metavar="SETTINGS.toml", help="emulated controller settings")
+                       epilog=EXAMPLE.format(where=_shipped_where()) + "\n" + SAFETY, formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("--machine", metavar="MACHINE.toml", help=f"machine config (default: the shipped {DEFAULT_MACHINE})")
+    p.add_argument("--converter", metavar="CONVERTER.toml", help=f"converter config (default: the shipped {DEFAULT_CONVERTER})")
+    p.add_argument("--settings", metavar="SETTINGS.toml",
+                   help=f"emulated controller settings (default: the shipped {DEFAULT_CONTROLLER})")
     p.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE")
     p.add_argument("--encoding", choices=("fixed", "float32"), default="fixed")
     p.add_argument("--paced", action="store_true", help="paced real time instead of lockstep")
@@ -47,7 +64,12 @@ def _do_demo(args):
     from ..runner import default_timeline, run_closed_loop
     from . import load_plant
 
+    from ..shipped import shipped_config
+
     print(SAFETY + "\n")
+    args.machine = args.machine or str(shipped_config(DEFAULT_MACHINE))
+    args.converter = args.converter or str(shipped_config(DEFAULT_CONVERTER))
+    args.settings = args.settings or str(shipped_config(DEFAULT_CONTROLLER))
     plant = load_plant(args)
     load_settings(args.settings)  # validate before spawning anything
     if not 0 <= args.load <= 2:
@@ -59,7 +81,7 @@ def _do_demo(args):
         print(f"compiled in {took:.0f} s; later runs load it from the cache")
     with VirtualCable() as cable:
         env = dict(os.environ)
-        env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
+        env["PYTHONPATH"] = str(CODE_ROOT) + os.pathsep + env.get("PYTHONPATH", "")
         proc = subprocess.Popen(
             [sys.executable, "-m", "host.cli", "controller", "--link", cable.slave_path,
              "--settings", args.settings, "--quiet", "--idle-timeout", "10", "--handshake-timeout", "30"],
@@ -77,5 +99,5 @@ def _do_demo(args):
     if loop.stats.frames == 0:
         raise LinkError("demo: the controller answered no command frame")
     print("\nThis was a model: it proves the controller's logic, not its wiring, sensors or the real")
-    print("machine. Energise real drives only under local electrical codes and licensed practice.")
+    print("machine. " + DEFER_TO_CODES)
     return 0

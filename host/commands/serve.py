@@ -10,7 +10,7 @@ from . import add_config_args
 EXAMPLE = """examples:
   dcrig serve configs/machines/kestrel_f3_stand.toml --converter configs/converters/kestrel_f3_dual.toml \\
       --link /dev/ttyUSB0 --baud 921600 --paced
-  dcrig serve configs/machines/kestrel_f3_stand.toml --link tcp-listen://127.0.0.1:5020
+  dcrig serve configs/machines/kestrel_f3_stand.toml --link accept://127.0.0.1:5020
   dcrig serve configs/machines/kestrel_f3_stand.toml --link socket://127.0.0.1:5020 --lockstep
 """
 
@@ -22,7 +22,7 @@ def add_subparser(sub):
                        "following the default operator timeline (start, rated speed, load step, stop).",
                        epilog=EXAMPLE + "\n" + SAFETY, formatter_class=argparse.RawDescriptionHelpFormatter)
     add_config_args(p)
-    p.add_argument("--link", required=True, metavar="URL", help="port or URL: /dev/ttyUSB0, socket://..., tcp-listen://127.0.0.1:PORT, pty://")
+    p.add_argument("--link", required=True, metavar="URL", help="port or URL: /dev/ttyUSB0, socket://..., accept://127.0.0.1:PORT, pty://")
     p.add_argument("--baud", type=int, default=921600)
     p.add_argument("--parity", default="N", help="N, E or O")
     p.add_argument("--encoding", choices=("fixed", "float32"), default="fixed")

@@ -1,4 +1,6 @@
-"""`dcrig sim`: offline transient of a machine (and converter) with input steps and ramps."""
+"""`dcrig sim`: offline transient of a machine (and converter) with input changes and ramps.
+
+`--step` is the old name of `--change`, kept for one release as a hidden alias."""
 
 from __future__ import annotations
 
@@ -9,30 +11,34 @@ import numpy as np
 
 from rtmodel import layout as L
 
+from ..cli import SAFETY
 from ..errors import ConfigError
 from . import add_config_args
 
 EXAMPLE = """examples:
   dcrig sim configs/machines/kestrel_f3_stand.toml --t-end 4 --dt 20e-6 \\
-      --step load_torque_Nm@2.5=6000 --out f3.csv --plot f3.png
+      --change load_torque_Nm@2.5=6000 --out f3.csv --plot f3.png
   dcrig sim configs/machines/kestrel_f3_stand.toml --converter configs/converters/kestrel_f3_bridge.toml \\
       --t-end 3 --set-input firing_angle_deg=150 --ramp firing_angle_deg@0.2:2.5=150:20 --out ramp.csv
 
-inputs (NAME for --step/--ramp/--set-input): see `host/sim.py` INPUTS; units are in the names.
+inputs (NAME for --change/--ramp/--set-input): see `host/sim.py` INPUTS; units are in the names.
 """
 
 
 def add_subparser(sub):
     p = sub.add_parser("sim", help="offline transient simulation to CSV (and PNG)",
-                       description="Run the compiled model offline from standstill with step and ramp inputs; "
+                       description="Run the compiled model offline from standstill with input changes and ramps; "
                        "write a CSV with unit-suffixed columns and optionally a plot.",
-                       epilog=EXAMPLE, formatter_class=argparse.RawDescriptionHelpFormatter)
+                       epilog=EXAMPLE + "\n" + SAFETY, formatter_class=argparse.RawDescriptionHelpFormatter)
     add_config_args(p)
     p.add_argument("--t-end", type=float, required=True, metavar="S", help="simulated time, s")
     p.add_argument("--dt", type=float, metavar="S", help="model step, s (overrides sim.dt_us)")
     p.add_argument("--sample", type=float, metavar="S", help="output sample interval, s (default: the step when a converter is given, else 1 ms)")
     p.add_argument("--set-input", action="append", default=[], metavar="NAME=VALUE", help="input value from t = 0")
-    p.add_argument("--step", action="append", default=[], metavar="NAME@T=VALUE", help="step an input at time T")
+    p.add_argument("--change", action="append", default=[], metavar="NAME@T=VALUE",
+                   help="change an input to VALUE at time T (repeatable)")
+    # the old spelling, hidden from --help for its last release; kept apart to name it in errors
+    p.add_argument("--step", dest="old_step", action="append", default=[], help=argparse.SUPPRESS)
     p.add_argument("--ramp", action="append", default=[], metavar="NAME@T0:T1=V0:V1", help="ramp an input linearly")
     p.add_argument("--out", required=True, metavar="FILE.csv", help="CSV output")
     p.add_argument("--plot", metavar="FILE.png", help="PNG plot")
@@ -40,7 +46,7 @@ def add_subparser(sub):
 
 
 def _do_sim(args):
-    from ..sim import parse_ramp, parse_step, plot, run_offline, write_csv
+    from ..sim import parse_change, parse_ramp, plot, run_offline, write_csv
     from . import load_plant
 
     if not (args.t_end > 0 and math.isfinite(args.t_end)):
@@ -59,8 +65,13 @@ def _do_sim(args):
         if "=" not in text:
             raise ConfigError(f"--set-input: '{text}': expected NAME=VALUE")
         name, val = text.split("=", 1)
-        segs.append(parse_step(f"{name}@0={val}"))
-    segs += [parse_step(s) for s in args.step] + [parse_ramp(r) for r in args.ramp]
+        segs.append(parse_change(f"{name}@0={val}", "--set-input"))
+    if args.old_step:
+        import sys
+
+        print("note: --step is renamed to --change; the old name goes in the next release", file=sys.stderr)
+    segs += [parse_change(s) for s in args.change] + [parse_change(s, "--step") for s in args.old_step]
+    segs += [parse_ramp(r) for r in args.ramp]
     sample = args.sample
     if sample is None:
         sample = plant.dt_s if plant.converter is not None else max(plant.dt_s, 1e-3)

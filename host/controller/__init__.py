@@ -6,8 +6,9 @@ serial, numba, rtmodel or host.link (only host.controller.process talks to the l
 """
 
 from host.controller.drive import ControllerSignals, DriveController
-from host.controller.protection import TripCode, trip_name
+from host.controller.protection import TripCode, trip_label, trip_name
 from host.controller.settings import KEYS, Settings, from_dict, load_settings
 
-__all__ = ["DriveController", "ControllerSignals", "TripCode", "trip_name", "Settings",
+__all__ = ["DriveController", "ControllerSignals", "TripCode", "trip_label", "trip_name",
+           "Settings",
            "KEYS", "load_settings", "from_dict"]

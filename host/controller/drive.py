@@ -1,6 +1,6 @@
 """The emulated thyristor DC drive controller, stepped once per frame.
 
-Owns: DriveController.step(fb, dt_s) -> Command, the sequencing (contactor before pulses,
+Owns: DriveController.step(fb, dt_s) -> Command, the start/stop order (contactor before pulses,
 pulses blocked before the contactor opens), the cascade speed loop -> current loop -> firing
 angle, the field loop with EMF-controlled field weakening, the dual-bridge changeover and the
 protections with their latching trip. Pure logic on plain floats: no I/O, no clock of its own
@@ -123,17 +123,17 @@ class DriveController:
         self._vac_f = g("field.supply_voltage_V")
         self._vf_max = g("field.voltage_max_V")
         self._if_min = g("field.min_current_A")
-        self._if_standby = g("field.standby_fraction") * self._if_rated
+        self._if_economy = g("field.economy_fraction") * self._if_rated
         self._af_min = g("field.alpha_min_deg")
         self._af_max = g("field.alpha_max_deg")
         self._weakening = g("field.weakening") and not self._series
         self._emf_set = g("field.emf_setpoint_V")
-        self._run_pulse = g("sequencing.run_input") == "pulse"
-        self._release_delay = g("sequencing.pulse_release_delay_s")
-        self._zero_speed = g("sequencing.zero_speed_rpm")
-        self._zero_i = g("sequencing.zero_current_A")
-        self._est_frac = g("sequencing.field_establish_fraction")
-        self._field_timeout = g("sequencing.field_establish_timeout_s")
+        self._run_pulse = g("start_stop.run_input") == "pulse"
+        self._release_delay = g("start_stop.pulse_release_delay_s")
+        self._zero_speed = g("start_stop.zero_speed_rpm")
+        self._zero_i = g("start_stop.zero_current_A")
+        self._est_frac = g("start_stop.field_establish_fraction")
+        self._field_timeout = g("start_stop.field_establish_timeout_s")
         self._oc_thr = g("protection.overcurrent.threshold_A")
         self._ol_irated = g("protection.overload.rated_current_A")
         self._ol_tau = g("protection.overload.time_constant_s")
@@ -320,7 +320,7 @@ class DriveController:
             self._protect(fb, dt_s, ia, va, i_f, n_raw, n, emf, phi, state)
             state = self._state
 
-        # ---- sequencing -----------------------------------------------------------------------
+        # ---- start and stop -------------------------------------------------------------------
         released = False
         if state == STOPPED:
             self._contactor = 0
@@ -524,7 +524,7 @@ class DriveController:
                 else:
                     self._emf_pi.reset()
             else:
-                if_ref = self._if_standby
+                if_ref = self._if_economy
                 self._emf_pi.reset()
             self._if_ref = if_ref
             if if_ref > 0.0:

@@ -21,6 +21,7 @@ import time
 
 from host import signals as sig
 from host.controller.drive import DriveController
+from host.controller.protection import trip_label
 from host.controller.settings import load_settings
 from host.errors import DcrigError, LinkTimeout
 
@@ -137,9 +138,14 @@ def _loop(session, ctrl, idle_timeout_s, max_frames, clock, on_frame) -> dict:
 
 
 def main(argv=None) -> int:
+    from host.cli import SAFETY  # host.cli imports nothing heavy: no link, numba or rtmodel
+
     ap = argparse.ArgumentParser(prog="python -m host.controller.process",
                                  description="Emulated thyristor DC drive controller on a dcrig link "
-                                             "(test bench only: never on a link to a real converter).")
+                                             "(test bench only: never on a link to a real converter).",
+                                 epilog="example:\n  python -m host.controller.process /dev/pts/5 "
+                                        "configs/controllers/kestrel_f3_stand.toml\n\n" + SAFETY,
+                                 formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("link", help="port path or link URL (e.g. /dev/pts/5, socket://127.0.0.1:5020)")
     ap.add_argument("settings", help="controller settings TOML (configs/controllers/*.toml)")
     ap.add_argument("--encoding", choices=("fixed", "float32"), default=None,
@@ -158,7 +164,7 @@ def main(argv=None) -> int:
     except KeyboardInterrupt:
         return 130
     first = summary["first_trip"]
-    trip = f", first trip {first[0].name.lower()} at {first[1]:.4f} s" if first else ""
+    trip = f", first trip {trip_label(first[0])} at {first[1]:.4f} s" if first else ""
     print(f"controller: {summary['frames']} frames, {len(summary['trips'])} trips, "
           f"ended by {summary['reason']}{trip}")
     return 0

@@ -44,6 +44,21 @@ def trip_name(code: int) -> str:
         return f"unknown_{code}"
 
 
+def trip_label(code: int) -> str:
+    """How a person reads a trip code: the number with its name, e.g. '4 (field_loss)'.
+    A bare number means nothing on a screen or in a log; the number stays for the wire."""
+    return f"{int(code)} ({trip_name(code)})"
+
+
+def trip_detail(code: int, detail: float) -> str:
+    """The value reported with a trip, with its unit: '1712.5 A'."""
+    try:
+        unit = TRIP_DETAIL_UNIT.get(TripCode(code), "")
+    except ValueError:
+        unit = ""
+    return f"{detail:g} {unit}".rstrip()
+
+
 class Persist:
     """Condition timer: true once the condition has held continuously for delay_s.
 

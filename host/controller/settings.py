@@ -171,7 +171,7 @@ _k("field.kp_V_per_A", "float", REQUIRED, "must be > 0", _pos, "Field current lo
 _k("field.ti_s", "float", REQUIRED, "must be > 0", _pos, "Field current loop integral time.")
 _k("field.min_current_A", "float", REQUIRED, "must be > 0", _pos,
    "Lowest field current reference in field weakening.")
-_k("field.standby_fraction", "float", 0.3, "must be in 0..1", _between(0, 1),
+_k("field.economy_fraction", "float", 0.3, "must be in 0..1", _between(0, 1),
    "Field reference while stopped (economy field), as a fraction of rated.")
 _k("field.alpha_min_deg", "float", 5.0, "must be in 0..90", _between(0, 90),
    "Smallest field bridge firing angle.")
@@ -185,20 +185,20 @@ _k("field.emf_kp_A_per_V", "float", REQUIRED, "must be > 0", _pos,
    "EMF controller gain (field current per volt of EMF error).")
 _k("field.emf_ti_s", "float", REQUIRED, "must be > 0", _pos, "EMF controller integral time.")
 
-# --- sequencing -------------------------------------------------------------------------------
-_k("sequencing.run_input", "str", "maintained", "", None,
+# --- start_stop --------------------------------------------------------------------------------
+_k("start_stop.run_input", "str", "maintained", "", None,
    "op_run is a maintained run signal (drop = stop) or a start pulse latched until op_stop.",
    ("maintained", "pulse"))
-_k("sequencing.pulse_release_delay_s", "float", 0.05, "must be in 0..5", _between(0, 5),
+_k("start_stop.pulse_release_delay_s", "float", 0.05, "must be in 0..5", _between(0, 5),
    "Wait after the contactor reports closed before pulses are released.")
-_k("sequencing.zero_speed_rpm", "float", REQUIRED, "must be > 0", _pos,
+_k("start_stop.zero_speed_rpm", "float", REQUIRED, "must be > 0", _pos,
    "Speed below which a stopping drive counts as at rest.")
-_k("sequencing.zero_current_A", "float", REQUIRED, "must be > 0", _pos,
+_k("start_stop.zero_current_A", "float", REQUIRED, "must be > 0", _pos,
    "Current below which pulses are blocked and the contactor opens at the end of a stop.")
-_k("sequencing.field_establish_timeout_s", "float", 5.0, "must be in 0..60", _between(0, 60),
+_k("start_stop.field_establish_timeout_s", "float", 5.0, "must be in 0..60", _between(0, 60),
    "Time allowed after the contactor command for the field to reach the establish fraction; "
    "longer trips with field_loss.")
-_k("sequencing.field_establish_fraction", "float", 0.8, "must be in 0..1", _between(0, 1),
+_k("start_stop.field_establish_fraction", "float", 0.8, "must be in 0..1", _between(0, 1),
    "Field current (fraction of rated) needed before pulses are released.")
 
 # --- protections ------------------------------------------------------------------------------
@@ -221,7 +221,7 @@ _k("protection.overspeed.delay_s", "float", 0.02, "must be in 0..5", _between(0,
 _k("protection.field_loss.fraction", "float", 0.5, "must be in 0.05..1", _between(0.05, 1),
    "Field current below this fraction of its reference, while energised, counts as lost.")
 _k("protection.field_loss.delay_s", "float", 0.5, "must be in 0..30", _between(0, 30),
-   "Time the field loss must persist (the start is guarded by sequencing.field_establish_timeout_s).")
+   "Time the field loss must persist (the start is guarded by start_stop.field_establish_timeout_s).")
 _k("protection.tacho_loss.threshold_rpm", "float", REQUIRED, "must be > 0", _pos,
    "abs(EMF/(K*phi) - n_tacho) above this counts as implausible tacho.")
 _k("protection.tacho_loss.delay_s", "float", 0.2, "must be in 0..10", _between(0, 10),
@@ -245,11 +245,26 @@ _k("protection.contactor.timeout_s", "float", 0.5, "must be in 0..10", _between(
 
 # --- trip -------------------------------------------------------------------------------------
 _k("trip.suppress_timeout_s", "float", 0.02, "must be in 0..1", _between(0, 1),
-   "After a trip, pulses stay at the inversion end until abs(Ia) < sequencing.zero_current_A or "
+   "After a trip, pulses stay at the inversion end until abs(Ia) < start_stop.zero_current_A or "
    "this time has passed; then pulses block and the contactor opens.")
 
 KEYS: dict[str, Key] = {k.name: k for k in _KEYS}
 del _KEYS
+
+# Old spellings of renamed keys and sections: a file that still uses one gets a one-line
+# "renamed to ..." error rather than silence or a vague "unknown key".
+RENAMED_SECTIONS: dict[str, str] = {"sequencing": "start_stop"}
+RENAMED_KEYS: dict[str, str] = {"field.standby_fraction": "field.economy_fraction"}
+
+
+def _renamed(name: str) -> str | None:
+    """The new name of an old key spelling, or None."""
+    if name in RENAMED_KEYS:
+        return RENAMED_KEYS[name]
+    section, _, rest = name.partition(".")
+    if section in RENAMED_SECTIONS and rest:
+        return f"{RENAMED_SECTIONS[section]}.{rest}"
+    return None
 
 
 def _flatten(d: Mapping[str, Any], prefix: str = "") -> Iterable[tuple[str, Any]]:
@@ -329,6 +344,12 @@ def from_flat(flat: Mapping[str, Any], source: str) -> Settings:
     for name, value in flat.items():
         key = KEYS.get(name)
         if key is None:
+            new = _renamed(name)
+            if new is not None:
+                section = name.partition(".")[0]
+                why = (f" ([{section}] is now [{RENAMED_SECTIONS[section]}])"
+                       if section in RENAMED_SECTIONS else "")
+                raise ConfigError(f"{source}: {name}: renamed to {new}{why}, got {value!r}")
             hint = difflib.get_close_matches(name, KEYS, n=1, cutoff=0.6)
             more = f" (did you mean {hint[0]!r}?)" if hint else ""
             raise ConfigError(f"{source}: {name}: unknown key{more}")

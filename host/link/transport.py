@@ -16,7 +16,7 @@ Public API:
         latency_timer_ms: int | None                USB-serial adapters only
     class SerialLink(Link)(ser, url)                any pyserial object (serial_for_url)
     class FdLink(Link)(fd, url, peer_path=None, keep_fds=())   a raw POSIX fd (pty ends)
-    class TcpListenLink(Link)(host="127.0.0.1", port=0, url=None)  accepts one peer at a time
+    class AcceptLink(Link)(host="127.0.0.1", port=0, url=None)  accepts one peer at a time
         address -> (host, port);  connected: bool;  wait_connected(timeout_s) -> bool
     class VirtualCable (context manager): a pseudo-terminal pair in raw mode
         host_link() -> FdLink (master end);  controller_link() -> FdLink (slave end, in-process)
@@ -24,7 +24,8 @@ Public API:
     open_link(url, *, baud=921600, parity="N", write_timeout_s=0.1) -> Link
         URL forms: /dev/ttyUSB0, COM3, loop://, socket://127.0.0.1:5020, spy://..., rfc2217://...
                    (pyserial), pty:// (ours: master end, .peer_path names the slave),
-                   tcp-listen://127.0.0.1:5020 (ours; binds 127.0.0.1 unless a host is given)
+                   accept://127.0.0.1:5020 (ours: listens and accepts one peer; binds 127.0.0.1
+                   unless a host is given)
         bad URL, baud or parity -> LinkError("link 'URL': <key> <value>: <rule>")
     usb_latency_timer_ms(port_path, sysfs_root="/sys") -> int | None
     class LinkWarning(UserWarning)
@@ -48,7 +49,7 @@ from urllib.parse import urlsplit
 
 import serial
 
-from host.errors import LinkError
+from host.errors import ConfigError, LinkError
 from host.link.wire import MAX_PAYLOAD, Deframer, encode_wire
 
 DEFAULT_BAUD = 921600
@@ -59,7 +60,9 @@ PARITIES = {
     "O": serial.PARITY_ODD, "ODD": serial.PARITY_ODD,
 }  # fmt: skip
 PYSERIAL_SCHEMES = ("loop", "socket", "spy", "rfc2217", "hwgrep", "alt", "cp2110")
-OUR_SCHEMES = ("pty", "tcp-listen")
+OUR_SCHEMES = ("pty", "accept")
+# old spellings of our schemes: refused with a one-line "renamed to" error, never guessed
+RENAMED_SCHEMES = {"tcp-listen": "accept"}
 LATENCY_WARN_MS = 1
 
 
@@ -311,13 +314,13 @@ class VirtualCable:
         self.close()
 
 
-class TcpListenLink(Link):
+class AcceptLink(Link):
     """Listens on one TCP address and talks to one peer at a time, like a serial line: bytes
     written while no peer is connected are dropped (counted in bytes_dropped); when the peer
     disconnects the next one may connect."""
 
     def __init__(self, host: str = "127.0.0.1", port: int = 0, url: str | None = None, write_timeout_s=0.1):
-        super().__init__(url or f"tcp-listen://{host}:{port}")
+        super().__init__(url or f"accept://{host}:{port}")
         self._write_timeout_s = write_timeout_s
         self._srv = socket.socket(socket.AF_INET6 if ":" in host else socket.AF_INET, socket.SOCK_STREAM)
         self._srv.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
@@ -404,7 +407,8 @@ class TcpListenLink(Link):
 
 def usb_latency_timer_ms(port_path: str, sysfs_root: str = "/sys") -> int | None:
     """The latency timer of a USB-serial adapter (Linux sysfs), None when it cannot be read.
-    FTDI-style adapters hold received bytes up to this long before sending a USB packet."""
+    USB-serial adapters with a latency timer hold received bytes up to this long before
+    sending a USB packet."""
     try:
         name = os.path.basename(os.path.realpath(port_path))
         with open(f"{sysfs_root}/bus/usb-serial/devices/{name}/latency_timer", encoding="ascii") as fh:
@@ -462,8 +466,11 @@ def open_link(url: str, *, baud: int = DEFAULT_BAUD, parity: str = "N", write_ti
         link._keep.append(cable._slave)
         link.url = f"pty://{cable.slave_path}"
         return link
-    if scheme == "tcp-listen":
-        host, port = _split_host_port(url, url[len("tcp-listen://") :].split("/", 1)[0], "127.0.0.1")
+    if scheme in RENAMED_SCHEMES:
+        new_url = RENAMED_SCHEMES[scheme] + url[len(scheme):]
+        raise ConfigError(f"--link: {scheme}://: renamed to {RENAMED_SCHEMES[scheme]}:// (use {new_url}), got '{url}'")
+    if scheme == "accept":
+        host, port = _split_host_port(url, url[len("accept://") :].split("/", 1)[0], "127.0.0.1")
         if host not in ("127.0.0.1", "::1", "localhost"):
             warnings.warn(
                 f"link '{url}': listening on {host}, not loopback: anyone on that network can "
@@ -471,7 +478,7 @@ def open_link(url: str, *, baud: int = DEFAULT_BAUD, parity: str = "N", write_ti
                 LinkWarning,
                 stacklevel=2,
             )
-        return TcpListenLink(host, port, url=url, write_timeout_s=write_timeout_s)
+        return AcceptLink(host, port, url=url, write_timeout_s=write_timeout_s)
     if scheme and scheme not in PYSERIAL_SCHEMES:
         known = ", ".join(f"{s}://" for s in (*OUR_SCHEMES, *PYSERIAL_SCHEMES))
         raise LinkError(f"link '{url}': scheme {scheme!r}: unknown (known: {known}, or a port path)")

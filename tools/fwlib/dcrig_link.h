@@ -16,6 +16,8 @@
  *
  * CAUTION: these frames fire thyristors once a controller drives a real converter. Test
  * against the host model first; keep the hardware interlocks independent of this code.
+ * Follow local electrical codes and licensed practice, and leave the wiring, energising and
+ * protection of a real drive to a qualified person; nothing in dcrig replaces them.
  *
  * Usage example (controller answering each FEEDBACK with a COMMAND):
  *

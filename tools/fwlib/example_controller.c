@@ -4,6 +4,10 @@
  * in dcrig_link.c. Must never be used on a real power stage: its "protection" is a single
  * overcurrent comparison.
  *
+ * CAUTION: follow local electrical codes and licensed practice, and leave the wiring,
+ * energising and protection of a real drive to a qualified person; nothing in dcrig
+ * replaces them.
+ *
  * Opens a tty (e.g. the slave side of a dcrig virtual cable, /dev/pts/N) in raw mode,
  * answers the host's HELLO, then answers every FEEDBACK with one COMMAND:
  *

@@ -1,6 +1,7 @@
-"""`dcrig op`: the steady-state operating point of a machine (and the firing angle its bridge needs).
+"""`dcrig steady`: the steady-state operating point of a machine (and the firing angle its bridge needs).
 
-Owns argument checking and the printed table; the solving is host.opoint. Never imports the
+Owns argument checking and the printed table; the solving is host.opoint. `dcrig op`, the
+old name, still reaches this command for one release (host.cli.HIDDEN_ALIASES). Never imports the
 step kernel itself (host.opoint runs it lazily, only for a switched-bridge continuity check).
 """
 
@@ -14,11 +15,11 @@ from ..errors import ConfigError
 from . import add_config_args
 
 EXAMPLE = """examples:
-  dcrig op configs/machines/kestrel_f3_stand.toml --vt 440 --load-torque 8000
-  dcrig op configs/machines/kestrel_f3_stand.toml --converter configs/converters/kestrel_f3_bridge.toml \\
+  dcrig steady configs/machines/kestrel_f3_stand.toml --vt 440 --load-torque 8000
+  dcrig steady configs/machines/kestrel_f3_stand.toml --converter configs/converters/kestrel_f3_bridge.toml \\
       --vt 400 --speed 450 --json
-  dcrig op configs/machines/kestrel_exciter.toml --speed 1450 --load-ohm 2.4
-  dcrig op configs/machines/kestrel_exciter.toml --speed 1450            (open-circuit build-up)
+  dcrig steady configs/machines/kestrel_exciter.toml --speed 1450 --load-ohm 2.4
+  dcrig steady configs/machines/kestrel_exciter.toml --speed 1450            (open-circuit build-up)
 
 motor:     --vt plus exactly one of --load-torque, --line-current, --armature-current, --speed
 generator: --speed plus --load-ohm, --load-current, or neither (open circuit)
@@ -28,17 +29,27 @@ exit status: 0 found, 1 no operating point exists (the reason is printed), 2 bad
 
 
 def add_subparser(sub):
+    _configure(sub.add_parser(
+        "steady",
+        help="steady-state operating point (motor or generator, self-excited build-up, firing angle)",
+        **_parser_text(),
+    ))
+
+
+def _parser_text() -> dict:
+    from ..cli import SAFETY
     from ..opoint import REPORT_CONVENTIONS
 
-    p = sub.add_parser(
-        "op",
-        help="steady-state operating point (motor or generator, self-excited build-up, firing angle)",
+    return dict(
         description="Solve the DC steady state of the model's machine equations: speed, currents, EMF, torque, "
         "power balance and losses. With --converter also the firing angle (overlap drop included) and whether "
         "the bridge current is continuous.",
-        epilog=EXAMPLE + "\n" + REPORT_CONVENTIONS,
+        epilog=EXAMPLE + "\n" + REPORT_CONVENTIONS + "\n" + SAFETY,
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
+
+
+def _configure(p):
     add_config_args(p)
     p.add_argument("--vt", type=float, metavar="V", help="terminal (armature supply) voltage: makes it a motor point")
     p.add_argument("--load-torque", type=float, metavar="NM", help="torque the load takes from the shaft, N m")
@@ -52,7 +63,7 @@ def add_subparser(sub):
     p.add_argument("--arm-temp", type=float, metavar="C", help="armature temperature, degC (default: the config's initial/ambient)")
     p.add_argument("--no-kernel", action="store_true", help="with a switched bridge: use the ripple estimate for continuity instead of a short kernel run")
     p.add_argument("--json", action="store_true", help="print one JSON object")
-    p.set_defaults(func=_do_op)
+    p.set_defaults(func=_do_steady)
 
 
 def _check_combination(args):
@@ -63,21 +74,21 @@ def _check_combination(args):
     given_g = [n for n, v in gen_only if v is not None]
     if args.vt is not None:
         if given_g:
-            raise ConfigError(f"op: {given_g[0]} is a generator option; with --vt give a motor quantity instead "
+            raise ConfigError(f"steady: {given_g[0]} is a generator option; with --vt give a motor quantity instead "
                               "(a negative --load-torque for regeneration)")
         n = len(given_m) + (args.speed is not None)
         if n != 1:
-            raise ConfigError("op: with --vt give exactly one of --load-torque, --line-current, --armature-current, "
+            raise ConfigError("steady: with --vt give exactly one of --load-torque, --line-current, --armature-current, "
                               f"--speed; got {n}")
         if args.field_reversed:
-            raise ConfigError("op: --field-reversed applies to a generator point (--speed without --vt)")
+            raise ConfigError("steady: --field-reversed applies to a generator point (--speed without --vt)")
         return "motor"
     if given_m:
-        raise ConfigError(f"op: {given_m[0]} needs --vt (a motor point)")
+        raise ConfigError(f"steady: {given_m[0]} needs --vt (a motor point)")
     if args.speed is None:
-        raise ConfigError("op: give --vt and one motor quantity, or --speed for a generator point")
+        raise ConfigError("steady: give --vt and one motor quantity, or --speed for a generator point")
     if len(given_g) > 1:
-        raise ConfigError("op: give at most one of --load-ohm, --load-current")
+        raise ConfigError("steady: give at most one of --load-ohm, --load-current")
     return "generator"
 
 
@@ -99,7 +110,7 @@ def solve_from_args(args):
         op = opoint.with_converter(op, use_kernel=not args.no_kernel)
     else:
         if plant.converter is not None:
-            raise ConfigError("op: --converter feeds the armature, so give --vt and a motor quantity "
+            raise ConfigError("steady: --converter feeds the armature, so give --vt and a motor quantity "
                               "(a negative --load-torque for regeneration through a dual bridge)")
         op = opoint.solve_generator(plant, args.speed, load_ohm=args.load_ohm, load_current_A=args.load_current,
                                     field_voltage_V=args.field_voltage, arm_temp_C=args.arm_temp,
@@ -120,7 +131,7 @@ def _jsonable(v):
     return str(v)
 
 
-def _do_op(args):
+def _do_steady(args):
     op = solve_from_args(args)
     rep = op.report()
     if args.json:
@@ -192,7 +203,7 @@ def _print_table(rep):
             print(f"  {name:<{width}}  {_fmt(val):>12} {unit}")
         if conv and conv.get("continuous") is not None:
             print(f"  conduction: {'continuous' if conv['continuous'] else 'DISCONTINUOUS'} ({conv.get('continuity_basis', '')})")
-        print(f"  duty: {rep.get('duty', '-')}, sign convention: {rep['convention']} (see dcrig op --help)")
+        print(f"  duty: {rep.get('duty', '-')}, sign convention: {rep['convention']} (see dcrig steady --help)")
     se = rep.get("self_excitation")
     if se and se.get("critical_field_ohm") is not None and se.get("field_circuit_ohm") is not None:
         print(f"  field circuit {se['field_circuit_ohm']:.4g} ohm, critical {se['critical_field_ohm']:.4g} ohm at this speed")

@@ -1,8 +1,10 @@
-"""`dcrig op` on the command line: JSON keys, exit codes, one-line errors."""
+"""`dcrig steady` on the command line: JSON keys, exit codes, one-line errors; `op`, its old name,
+still works for one release and stays out of the help."""
 
 from __future__ import annotations
 
 import json
+import re
 import subprocess
 import sys
 
@@ -16,8 +18,8 @@ KEYS = ("speed_rpm", "armature_current_A", "field_current_A", "line_current_A", 
         "terminal_voltage_V", "torque_Nm", "input_power_W", "output_power_W", "efficiency")
 
 
-def dcrig(*args, timeout=120):
-    return subprocess.run([sys.executable, "-m", "host.cli", "op", *args], cwd=ROOT, capture_output=True,
+def dcrig(*args, timeout=120, command="steady"):
+    return subprocess.run([sys.executable, "-m", "host.cli", command, *args], cwd=ROOT, capture_output=True,
                           text=True, timeout=timeout, env={"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin"})
 
 
@@ -76,6 +78,23 @@ def test_no_operating_point_exits_1_and_says_why(tmp_path):
 
 
 def test_help_has_an_example():
-    p = subprocess.run([sys.executable, "-m", "host.cli", "op", "--help"], cwd=ROOT, capture_output=True,
+    p = dcrig("--help", timeout=60)
+    assert p.returncode == 0 and "dcrig steady configs/machines/" in p.stdout
+
+
+def test_old_name_op_still_solves_the_same_point_and_says_it_is_renamed():
+    args = (F3, "--vt", "440", "--load-torque", "6000", "--json")
+    new, old = dcrig(*args), dcrig(*args, command="op")
+    assert new.returncode == 0 and old.returncode == 0, old.stderr
+    assert json.loads(old.stdout) == json.loads(new.stdout)
+    assert "renamed to `dcrig steady`" in old.stderr and "renamed" not in new.stderr
+
+
+def test_old_name_op_is_hidden_from_the_command_list():
+    p = subprocess.run([sys.executable, "-m", "host.cli", "--help"], cwd=ROOT, capture_output=True,
                        text=True, timeout=60, env={"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin"})
-    assert p.returncode == 0 and "dcrig op configs/machines/" in p.stdout
+    assert p.returncode == 0 and "steady" in p.stdout
+    assert not re.search(r"^\s+op\b", p.stdout, re.M) and "{" not in p.stdout.split("\n\n")[0], p.stdout
+    p = subprocess.run([sys.executable, "-m", "host.cli", "no-such-command"], cwd=ROOT, capture_output=True,
+                       text=True, timeout=60, env={"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin"})
+    assert p.returncode == 2 and "'steady'" in p.stderr and "'op'" not in p.stderr, p.stderr
