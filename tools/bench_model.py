@@ -320,7 +320,7 @@ SEP_COMPARE = (("ia", "ia_A", L.X_I_LINE_A), ("if", "if_A", L.X_I_FIELD_A), ("sp
 BRIDGE_COMPARE = (("ia", "i_line_A", L.X_I_LINE_A), ("if", "i_field_A", L.X_I_FIELD_A),
                   ("speed", "w_rad_s", L.X_SPEED_RAD_S), ("temp", "temp_C", L.X_TEMP_ARM_C),
                   ("angle", "angle_rad", L.X_ANGLE_RAD), ("mains", "mains_angle_rad", L.X_MAINS_ANGLE_RAD),
-                  ("vt", "vt_V", L.X_VT_V))
+                  ("vt", "vt_V", L.X_VT_V), ("pulse mean vt", "pulse_vavg_V", L.X_PULSE_VAVG_V))
 
 
 def compile_c(source: Path, opt: str, workdir: Path) -> tuple[Path | None, str]:

@@ -25,6 +25,9 @@
  *     after each stage) and the line currents; turn-off at a current zero; an overlap that
  *     ends inside a step gives the rest of the step the new circuit's DC-current slope; KCL
  *     kept exact by spreading what a turn-off clipped over the group's remaining devices;
+ *   - the step's mean terminal voltage follows its circuit: after an overlap end inside the
+ *     step, the rest of the step gets the new circuit's voltage too; a current zero inside
+ *     the step gives the conducting part's trapezoid, then the open-circuit voltage;
  *   - armature temperature once per frame on the mean copper loss; per-pulse mean voltage.
  *
  * What makes it fast (each a thing the kernel may do as well): state in locals across the
@@ -393,6 +396,7 @@ static void frame(const Params *p, State *st, Segment *seg, long n_sub)
             vth1 = up - un;
         }
         vt = machine(p, &fr, seg, feeds, vth1, inv_m11, i1p, i2p, wp, &e1, &e2, &te2, &emf2);
+        double vt2 = vt;
         if (feeds) {
             double vpr = up - ls_kp * e1, vnr = un + ls_kn * e1;
             for (int ph = 0; ph < 3; ph++)
@@ -413,6 +417,7 @@ static void frame(const Params *p, State *st, Segment *seg, long n_sub)
         int nr[3];
         int np = 0, nn = 0, failed_up = 0, failed_low = 0;
         double f_off = 1.0;
+        double dv_rest = 0.0, f_cond = 1.0; /* the step's voltage after an overlap end, conducting part */
         for (int ph = 0; ph < 3; ph++) {
             int r = rail[ph];
             double cur = pn[ph];
@@ -450,21 +455,27 @@ static void frame(const Params *p, State *st, Segment *seg, long n_sub)
             pn[0] = pn[1] = pn[2] = 0.0;
             last_up = -1.0;
             last_low = -1.0;
-            if (feeds)
+            if (feeds) {
+                if (i1 != 0.0) /* the DC current reached zero inside the step */
+                    f_cond = i1 * i1n < 0.0 ? i1 / (i1 - i1n) : f_off;
                 i1n = 0.0;
+            }
         } else {
             if (feeds && f_off < 1.0) {
                 double uo, uno, un2, up2, g1, g2, h1, hh2, tt, ee;
                 int a, b, c, d;
                 thevenin(rail, v1, pn, rs, fr.inv_k, &uo, &uno, &a, &b);
                 thevenin(nr, v1, pn, rs, fr.inv_k, &up2, &un2, &c, &d);
-                machine(p, &fr, seg, 1, uo - uno, 1.0 / (p->la + ls * (1.0 / a + 1.0 / b)), i1n, i2n, wn,
-                        &g1, &g2, &tt, &ee);
-                machine(p, &fr, seg, 1, up2 - un2, 1.0 / (p->la + ls * (1.0 / c + 1.0 / d)), i1n, i2n, wn,
-                        &h1, &hh2, &tt, &ee);
+                double vt_o = machine(p, &fr, seg, 1, uo - uno, fr.inv_m11[a][b], i1n, i2n, wn, &g1, &g2, &tt, &ee);
+                double vt_n = machine(p, &fr, seg, 1, up2 - un2, fr.inv_m11[c][d], i1n, i2n, wn, &h1, &hh2, &tt, &ee);
                 double rest = (1.0 - f_off) * dt;
                 i1n += rest * (h1 - g1);
                 i2n += rest * (hh2 - g2);
+                /* the same sub-step in the terminal voltage; the step ends in the new circuit */
+                dv_rest = (1.0 - f_off) * (vt_n - vt_o);
+                vth1 = up2 - un2;
+                kp = c;
+                kn = d;
             }
             double s_p = 0.0, s_n = 0.0;
             for (int ph = 0; ph < 3; ph++) {
@@ -506,7 +517,14 @@ static void frame(const Params *p, State *st, Segment *seg, long n_sub)
         s0 = s1;
         c0 = c1;
         t += dt;
-        double vmean = 0.5 * (vt_start + vt);
+        double vmean;
+        if (f_cond < 1.0) {
+            /* conducting part up to the current zero, then the open-circuit voltage */
+            double v_cond = vt_start + 0.5 * f_cond * (vt2 - vt_start);
+            vmean = f_cond * v_cond + (1.0 - f_cond) * vt;
+        } else {
+            vmean = 0.5 * (vt_start + vt) + dv_rest;
+        }
         vint += vmean * dt;
         pulse_t += dt;
     }
@@ -663,8 +681,8 @@ int main(int argc, char **argv)
     }
     printf("i_line_A %.17g\ni_field_A %.17g\nw_rad_s %.17g\nangle_rad %.17g\ntemp_C %.17g\nt_s %.17g\n",
            s.i1, s.i2, s.w, s.angle, s.temp, s.t);
-    printf("mains_angle_rad %.17g\nvt_V %.17g\npulse_vavg_V %.17g\nzero_current_s %.17g\n", s.th, s.vt,
-           s.pulse_vavg, s.zero_s);
+    printf("mains_angle_rad %.17g\nvt_V %.17g\npulse_vavg_V %.17g\npulse_vint %.17g\nzero_current_s %.17g\n", s.th,
+           s.vt, s.pulse_vavg, s.vint, s.zero_s);
     print_arr("ph_i_A", s.ph, 3);
     print_arr("thy_on", s.on, 6);
     print_arr("thy_off_s", s.off_s, 6);
