@@ -44,7 +44,7 @@ if str(ROOT) not in sys.path:
 
 from host.config import load  # noqa: E402
 from host.errors import DcrigError  # noqa: E402
-from host.params import pack  # noqa: E402
+from host.params import KERNEL_ENV, pack  # noqa: E402
 from host.shipped import shipped_dir  # noqa: E402
 from rtmodel import layout as L  # noqa: E402
 
@@ -199,7 +199,7 @@ t2 = time.perf_counter()
 plant = pack(load("machine", sys.argv[1]), load("converter", sys.argv[2]))
 x, u, y = plant.new_state(), plant.new_inputs(), np.zeros(L.N_OUTPUT)
 t3 = time.perf_counter()
-K.step_frame(x, plant.p, u, y, 1)
+plant.kernel()(x, plant.p, u, y, 1)
 t4 = time.perf_counter()
 cpu = resource.getrusage(resource.RUSAGE_SELF)
 print(json.dumps({"import_kernel_s": t2 - t1, "first_call_s": t4 - t3, "in_process_s": t4 - t0,
@@ -399,21 +399,24 @@ _COUNT_CHILD = r"""
 import ctypes, sys
 import numpy as np
 from rtmodel import layout as L
-from rtmodel.kernel import step_frame
+from rtmodel.kernel import kernel_for, step_frame
 marks = ctypes.CDLL(sys.argv[1])
 n = int(sys.argv[2])
-cases = [np.load(f) for f in sys.argv[3:]]
+builds = sys.argv[3].split(",")
+cases = [np.load(f) for f in sys.argv[4:]]
 y = np.zeros(L.N_OUTPUT)
+runs = []
 for d in cases:
-    step_frame(d["x"].copy(), d["p"], d["u"], y, 1)
-xs = [[d["x"].copy(), d["x"].copy()] for d in cases]
+    for b in builds:
+        f = step_frame if b == "generic" else kernel_for(d["p"])
+        f(d["x"].copy(), d["p"], d["u"], y, 1)
+        runs.append((f, d, [d["x"].copy(), d["x"].copy()]))
 marks.count_start()
-for i, d in enumerate(cases):
+for i, (f, d, xs) in enumerate(runs):
     for j, k in enumerate((n, 2 * n)):
-        x = xs[i][j]
         marks.count_zero()
-        step_frame(x, d["p"], d["u"], y, k)
-        marks.count_dump(f"case{i}_{k}".encode())
+        f(xs[j], d["p"], d["u"], y, k)
+        marks.count_dump(f"run{i}_{k}".encode())
 """
 
 
@@ -429,17 +432,19 @@ def _callgrind_totals(base: Path) -> list[int]:
     return totals
 
 
-def count_kernel_instructions(cases, n: int, workdir: Path) -> list[tuple[str, str]]:
-    """Kernel instructions per step for each (p, x, u) case, all in one valgrind run."""
+def count_kernel_instructions(cases, builds, n: int, workdir: Path) -> list[tuple[str, str]]:
+    """Kernel instructions per step for each (p, x, u) case and build ("generic",
+    "specialised"), in that order, all in one valgrind run."""
+    n_runs = len(cases) * len(builds)
     valgrind = shutil.which("valgrind")
     cc = shutil.which("cc")
     if valgrind is None or cc is None:
-        return [("-", "no valgrind or no cc on PATH")] * len(cases)
+        return [("-", "no valgrind or no cc on PATH")] * n_runs
     lib = workdir / "libcount_marks.so"
     comp = subprocess.run([cc, "-O2", "-shared", "-fPIC", "-o", str(lib), str(C_COUNT_MARKS)], capture_output=True,
                           text=True)
     if comp.returncode != 0:
-        return [("-", "count markers do not build (valgrind/callgrind.h missing?)")] * len(cases)
+        return [("-", "count markers do not build (valgrind/callgrind.h missing?)")] * n_runs
     from numba.core.registry import cpu_target
 
     _triple, cpu_name, features = cpu_target.target_context.codegen().magic_tuple()
@@ -452,16 +457,16 @@ def count_kernel_instructions(cases, n: int, workdir: Path) -> list[tuple[str, s
     env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
     try:
         run = subprocess.run([valgrind, "--tool=callgrind", "--instr-atstart=no", f"--callgrind-out-file={base}",
-                              sys.executable, "-c", _COUNT_CHILD, str(lib), str(n), *map(str, files)],
-                             capture_output=True, text=True, env=env, cwd=str(ROOT), timeout=900)
+                              sys.executable, "-c", _COUNT_CHILD, str(lib), str(n), ",".join(builds),
+                              *map(str, files)], capture_output=True, text=True, env=env, cwd=str(ROOT), timeout=900)
     except subprocess.TimeoutExpired:
-        return [("-", "valgrind run over 900 s (kernel not in the cache?)")] * len(cases)
+        return [("-", "valgrind run over 900 s (kernel not in the cache?)")] * n_runs
     totals = _callgrind_totals(base)
-    if run.returncode != 0 or len(totals) < 2 * len(cases):
+    if run.returncode != 0 or len(totals) < 2 * n_runs:
         why = (run.stderr.strip().splitlines() or ["no output"])[-1]
-        return [("-", f"valgrind failed ({len(totals)} dumps): {why}")] * len(cases)
+        return [("-", f"valgrind failed ({len(totals)} dumps): {why}")] * n_runs
     out = []
-    for i in range(len(cases)):
+    for i in range(n_runs):
         t1, t2 = totals[2 * i], totals[2 * i + 1]
         out.append((f"{(t2 - t1) / n:.0f}", f"one call of n steps {t1:,} instructions, of 2n {t2:,}"))
     return out
@@ -605,14 +610,29 @@ def main(argv=None) -> int:
 
         pin = "not pinned (--no-pin)" if args.no_pin else pin_one_core()
         try:
-            from rtmodel.kernel import step_frame as step
+            from rtmodel.kernel import step_frame as generic
         except ImportError as err:  # the model is being edited: say so in one line
             print(f"error: rtmodel.kernel does not import: {err}", file=sys.stderr)
             return 1
 
-        # warm the dispatcher (compile or cache load) outside every timed region
+        # warm the generic dispatcher (compile or cache load) outside every timed region; each
+        # case's own build is warmed by its untimed settle run
         warm = make_plant("kestrel_f3_stand", None, 20.0)
-        step(warm.new_state(), warm.p, warm.new_inputs(), np.zeros(L.N_OUTPUT), 1)
+        generic(warm.new_state(), warm.p, warm.new_inputs(), np.zeros(L.N_OUTPUT), 1)
+        specialised = os.environ.get(KERNEL_ENV, "specialised") != "generic"
+
+        def old_path_row(label, plant, supply, x, u, n_frames, n_sub, ns_new, cpu_new):
+            """The generic build (the kernel before specialisation) on the same run, beside the new one."""
+            if not specialised:
+                return
+            dt = plant.dt_s
+            ns, cpu_ns, _, _ = time_frames(generic, plant.p, x, u, n_frames, n_sub, repeats)
+            steps = n_frames * n_sub
+            sps = steps / (ns * 1e-9)
+            table.add(f"generic build, {label}", "F3 stand (separately excited)", supply, f"{dt * 1e6:g}", n_sub,
+                      _si(sps), f"{ns / steps:.1f}", f"{sps * dt:.0f}", _cpu(cpu_ns, steps, dt),
+                      f"the old path (step_frame, codes read at run time); the specialised build is "
+                      f"{ns / ns_new:.2f}x faster on wall time, {cpu_ns / cpu_new:.2f}x on CPU time")
 
         sep_run = None
         for label, stem, conn_text in DC_CASES:
@@ -620,6 +640,7 @@ def main(argv=None) -> int:
             dt = plant.dt_s
             n_sub = max(1, round(FRAME_S / dt))
             x, u = operating_point(plant)
+            step = plant.kernel()
             st0 = settle(step, plant, x, u, n_sub)
             n_frames = frames_for(sim_s, n_sub, dt)
             ns, cpu_ns, x_end, st = time_frames(step, plant.p, x, u, n_frames, n_sub, repeats)
@@ -632,6 +653,7 @@ def main(argv=None) -> int:
                       f"{flags_text(st, st0)}")
             if label == "separate":
                 sep_run = (plant, x.copy(), u.copy(), n_frames, n_sub, ns, cpu_ns, x_end.copy())
+                old_path_row("DC source, separate", plant, "DC source", x, u, n_frames, n_sub, ns, cpu_ns)
                 # per-call cost: the same plant, one step per call
                 ns1, cpu1, _, _ = time_frames(step, plant.p, x, u, n_calls_1, 1, repeats, collect=False)
                 per_call = ns1 / n_calls_1
@@ -649,6 +671,7 @@ def main(argv=None) -> int:
                 dt = plant.dt_s
                 n_sub = max(1, round(FRAME_S / dt))
                 x, u = operating_point(plant)
+                step = plant.kernel()
                 st0 = settle(step, plant, x, u, n_sub, ramp_s=0.0, hold_s=2.0)
                 n_frames = frames_for(sim_s, n_sub, dt)
                 ns, cpu_ns, x_end, st = time_frames(step, plant.p, x, u, n_frames, n_sub, repeats)
@@ -665,6 +688,8 @@ def main(argv=None) -> int:
                           f"{flags_text(st, st0)}")
                 if dt_us == 10.0 and label == "switched bridge":
                     bridge_run = (plant, x.copy(), u.copy(), n_frames, n_sub, ns, cpu_ns, x_end.copy())
+                    old_path_row("switched bridge, frame", plant, plant.converter["converter.name"], x, u, n_frames,
+                                 n_sub, ns, cpu_ns)
                     ns1, cpu1, _, _ = time_frames(step, plant.p, x, u, n_calls_1, 1, repeats, collect=False)
                     per_call = ns1 / n_calls_1
                     table.add("per call, n_sub=1", "F3 stand (separately excited)", plant.converter["converter.name"],
@@ -730,10 +755,13 @@ def main(argv=None) -> int:
                 if not any(k is krun for k in kcases):
                     kcases.append(krun)
             n_count = 333
-            got = count_kernel_instructions([(k[0].p, k[1], k[2]) for k in kcases], n_count, workdir)
-            for krun, (per_step, note) in zip(kcases, got):
+            builds = ["generic", "specialised"] if specialised else ["generic"]
+            got = iter(count_kernel_instructions([(k[0].p, k[1], k[2]) for k in kcases], builds, n_count, workdir))
+            for krun in kcases:
                 supply = "DC source" if krun is sep_run else krun[0].converter["converter.name"]
-                counts.add(f"kernel (step_frame), {supply}", f"{krun[0].dt_s * 1e6:g}", n_count, per_step, note)
+                for b in builds:
+                    per_step, note = next(got)
+                    counts.add(f"kernel, {b} build, {supply}", f"{krun[0].dt_s * 1e6:g}", n_count, per_step, note)
                 for label, krun_c, c in count_cases:
                     if krun_c is krun:
                         per_step, note = count_c_instructions(c, n_count, workdir)
@@ -771,8 +799,10 @@ def main(argv=None) -> int:
     finally:
         shutil.rmtree(workdir, ignore_errors=True)
 
+    build = os.environ.get(KERNEL_ENV, "specialised")
     print(f"dcrig model kernel speed - {cpu_model()}, {os.cpu_count()} logical CPUs, {pin}; "
-          f"Python {platform.python_version()}, numba {numba.__version__}, numpy {np.__version__}")
+          f"Python {platform.python_version()}, numba {numba.__version__}, numpy {np.__version__}; "
+          f"kernel build: {'generic (' + KERNEL_ENV + '=generic)' if build == 'generic' else 'specialised per plant'}")
     print(f"Best of {repeats} runs per measurement (the machine may be shared: the best run is the least "
           f"disturbed one); frames of 1/300 s (n_sub = frame / step); load average before "
           f"{load_before}, after {load_avg()}.{' QUICK mode: short runs, numbers indicative only.' if args.quick else ''}")
