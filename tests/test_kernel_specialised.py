@@ -31,7 +31,8 @@ CASES = [
     # separately excited, DC source, DC field
     ("kestrel_f3_stand", None, [], {}, {L.U_VT_V: 300.0, L.U_LOAD_TORQUE_NM: 4000.0}),
     # shunt on the averaged bridge, fan load
-    ("kestrel_shunt_fan", "kestrel_f3_averaged", [], {L.U_ALPHA_DEG: 60.0}, {L.U_ALPHA_DEG: 75.0}),
+    ("kestrel_shunt_fan", "kestrel_f3_averaged", ["field.kind=dc_source"], {L.U_ALPHA_DEG: 60.0},
+     {L.U_ALPHA_DEG: 75.0}),
     # series on the current source, overhauling (hoist) load
     ("kestrel_coil_hoist", "kestrel_current_source", [], {L.U_IREF_A: 150.0}, {L.U_IREF_A: 60.0}),
     # compound long shunt on a DC source, constant load
