@@ -96,7 +96,7 @@ CASES = [
     Case("machine_not_utf8", ["check", "{latin1_machine}"], ("latin1_machine.toml", "UTF-8", "0xe9")),
     Case("machine_random_bytes_sim", SIM[:1] + ["{random}", "--t-end", "0.01", "--out", "x.csv"], ("random.toml",)),
     Case("machine_400_nines_in_file", ["check", "{nines_machine}"], ("nines.toml", "machine.ra_ohm", "too large")),
-    Case("machine_400_nines_set", ["op", F3, "--vt", "440", "--speed", "500", "--set", f"machine.ra_ohm={NINES}"],
+    Case("machine_400_nines_set", ["steady", F3, "--vt", "440", "--speed", "500", "--set", f"machine.ra_ohm={NINES}"],
          ("machine.ra_ohm", "too large")),
     Case("machine_deep_nesting", ["check", "{deep_machine}"], ("deep.toml", "nested too deeply")),
     Case("machine_deep_nesting_set", ["check", F3, "--set", f"machine.ra_ohm={DEEP}"], ("--set", "machine.ra_ohm", "nested")),
