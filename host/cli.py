@@ -14,7 +14,7 @@ import textwrap
 from .errors import DcrigError
 
 # one module per subcommand under host.commands, each with add_subparser(subparsers)
-COMMANDS = ("check", "steady", "sim", "demo", "serve", "controller")
+COMMANDS = ("check", "steady", "sim", "demo", "serve", "controller", "identify", "calc")
 # old command names that still work for one release, listed nowhere (not in help, not in the
 # invalid-choice message): main() swaps them for the new name and prints a note
 HIDDEN_ALIASES = {"op": "steady"}
@@ -70,23 +70,39 @@ def _swap_hidden_alias(argv: list[str]) -> list[str]:
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = build_parser()
+    # Ctrl-C may come at any moment, also while the subcommands import numpy, numba and
+    # matplotlib (the first second of every run): one line and 130, never a traceback
     argv = _swap_hidden_alias(list(sys.argv[1:] if argv is None else argv))
-    args = parser.parse_args(argv)
-    if not getattr(args, "func", None):
-        parser.print_help()
-        return 2
+    debug = "--debug" in argv
     try:
+        parser = build_parser()
+        args = parser.parse_args(argv)
+        if not getattr(args, "func", None):
+            parser.print_help()
+            return 2
         return int(args.func(args) or 0)
     except DcrigError as err:
-        if args.debug:
+        if debug:
             raise
         print(f"error: {err}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
+        if debug:
+            raise
         print("error: interrupted", file=sys.stderr)
         return 130
 
 
+def run() -> None:
+    """Console entry point: exit with main()'s status; a Ctrl-C during interpreter shutdown
+    (after main returned) still gives no traceback."""
+    try:
+        code = main()
+    except KeyboardInterrupt:
+        print("error: interrupted", file=sys.stderr)
+        code = 130
+    sys.exit(code)
+
+
 if __name__ == "__main__":
-    sys.exit(main())
+    run()

@@ -56,6 +56,8 @@ def parse_override(text: str) -> tuple[str, Any]:
         value = tomllib.loads(f"v = {raw}")["v"]
     except tomllib.TOMLDecodeError:
         value = raw
+    except RecursionError as err:
+        raise ConfigError(f"--set: {key}: nested more deeply than a config value can be, got '{raw[:20]}...'") from err
     return key, value
 
 
@@ -63,18 +65,40 @@ def _rule_fail(src: str, path: str, rule: str, value: Any) -> ConfigError:
     return ConfigError(f"{src}: {path}: {rule}, got {value!r}")
 
 
+# Plausible magnitudes of any number in a config, in the units of its key. Beyond them a
+# value is a typing slip (1e308 H, 5e-324 A), and the model's arithmetic would overflow or
+# divide by zero long before physics had anything to say.
+MAGNITUDE_MAX = 1e9
+MAGNITUDE_MIN = 1e-9
+INT_MAX = 2**31 - 1
+FRAME_PERIOD_MAX_US = 100_000.0
+
+
+def _short(value: Any) -> Any:
+    """A value as a message shows it: a huge integer by its digit count, not its digits."""
+    if isinstance(value, int) and not isinstance(value, bool) and abs(value) > 10**15:
+        return f"a {len(str(abs(value)))}-digit integer"
+    return value
+
+
 def _check_type(src: str, key: Key, value: Any) -> Any:
     kind = key.kind
     if kind == "float":
         if isinstance(value, bool) or not isinstance(value, (int, float)):
             raise _rule_fail(src, key.path, "must be a number", value)
-        value = float(value)
+        try:
+            value = float(value)
+        except OverflowError:
+            raise _rule_fail(src, key.path, "must be a finite number (too large for a float)", _short(value)) from None
         if not math.isfinite(value):
             raise _rule_fail(src, key.path, "must be finite", value)
+        _check_magnitude(src, key.path, value)
         return value
     if kind == "int":
         if isinstance(value, bool) or not isinstance(value, int):
             raise _rule_fail(src, key.path, "must be a whole number", value)
+        if abs(value) > INT_MAX:
+            raise _rule_fail(src, key.path, f"must be a whole number within +-{INT_MAX}", _short(value))
         return value
     if kind == "bool":
         if not isinstance(value, bool):
@@ -89,11 +113,24 @@ def _check_type(src: str, key: Key, value: Any) -> Any:
             isinstance(v, bool) or not isinstance(v, (int, float)) for v in value
         ):
             raise _rule_fail(src, key.path, "must be a list of numbers", value)
-        out = tuple(float(v) for v in value)
+        try:
+            out = tuple(float(v) for v in value)
+        except OverflowError:
+            raise _rule_fail(src, key.path, "must hold finite numbers (one is too large for a float)",
+                             "a list") from None
         if not all(math.isfinite(v) for v in out):
             raise _rule_fail(src, key.path, "must hold finite numbers", value)
+        for v in out:
+            _check_magnitude(src, key.path, v)
         return out
     raise AssertionError(kind)
+
+
+def _check_magnitude(src: str, path: str, value: float) -> None:
+    a = abs(value)
+    if a > MAGNITUDE_MAX or (a != 0.0 and a < MAGNITUDE_MIN):
+        raise _rule_fail(src, path, f"magnitude must be 0 or from {MAGNITUDE_MIN:g} to {MAGNITUDE_MAX:g} "
+                         "(a plausible value in this key's unit)", value)
 
 
 def _check_rule(src: str, key: Key, value: Any) -> None:
@@ -159,10 +196,15 @@ def load(kind: str, path: str | Path, overrides: list[str] | tuple[str, ...] = (
         text = Path(path).read_text(encoding="utf-8")
     except OSError as err:
         raise ConfigError(f"{src}: cannot read file ({err.strerror})") from err
+    except UnicodeDecodeError as err:
+        raise ConfigError(f"{src}: (file): must be UTF-8 text (TOML), got byte 0x{err.object[err.start]:02x} "
+                          f"at offset {err.start}") from err
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise ConfigError(f"{src}: not valid TOML ({err})") from err
+    except RecursionError as err:
+        raise ConfigError(f"{src}: (file): arrays or tables nested too deeply to be a config") from err
     if kind not in data and kind == "machine":
         raise ConfigError(f"{src}: machine: required table is missing (is this a machine config?)")
     if kind == "converter" and "converter" not in data:
@@ -191,12 +233,38 @@ def _check_machine(cfg: Config) -> None:
     for path in need:
         if v[path] is None:
             raise ConfigError(f"{src}: {path}: required for connection '{conn}'")
-    xs = v["machine.magnetization.field_current_A"]
-    es = v["machine.magnetization.emf_V"]
     p_x = "machine.magnetization.field_current_A"
     p_e = "machine.magnetization.emf_V"
-    if len(xs) < 4:
-        raise _rule_fail(src, p_x, "needs at least 4 points", list(xs))
+    p_at = "machine.magnetization.ampere_turns"
+    p_n = "machine.magnetization.speed_rpm"
+    k_flux = v["machine.flux_constant_Vs"]
+    if k_flux is not None:
+        if series_like:
+            raise ConfigError(f"{src}: machine.flux_constant_Vs: a series machine's flux follows its current; give its curve, got {k_flux!r}")
+        if v[p_x] or v[p_at] or v[p_e]:
+            raise ConfigError(f"{src}: machine.flux_constant_Vs: give either a flux constant or a magnetization curve, not both, got {k_flux!r}")
+        # the straight line through the rated point, E = K phi w (i / I_f,rated), with no residual
+        n_c = v[p_n] or v["machine.rated_speed_rpm"]
+        i_r = v["machine.rated_field_current_A"]
+        v[p_n] = n_c
+        v[p_x] = (0.0, 2.0 * i_r)
+        v[p_e] = (0.0, 2.0 * k_flux * n_c * math.pi / 30.0)
+    elif v[p_at]:
+        if v[p_x]:
+            raise ConfigError(f"{src}: {p_at}: give the curve in field amperes or in ampere-turns, not both, got both")
+        turns = v["machine.field_turns_per_pole"]
+        if turns is None:
+            raise ConfigError(f"{src}: machine.field_turns_per_pole: required with {p_at} (to turn ampere-turns into amperes)")
+        v[p_x] = tuple(at / turns for at in v[p_at])
+        p_x = p_at  # rule failures below name the key the user wrote
+    if not v["machine.magnetization.field_current_A"]:
+        raise ConfigError(f"{src}: machine.magnetization.field_current_A: required (or ampere_turns, or machine.flux_constant_Vs)")
+    if v[p_n] is None:
+        raise ConfigError(f"{src}: {p_n}: required key is missing")
+    xs = v["machine.magnetization.field_current_A"]
+    es = v[p_e]
+    if len(xs) < 2:
+        raise _rule_fail(src, p_x, "needs at least 2 points", list(xs))
     if len(xs) > 32:
         raise _rule_fail(src, p_x, "allows at most 32 points", len(xs))
     if len(es) != len(xs):
@@ -225,14 +293,16 @@ def _check_machine(cfg: Config) -> None:
     # rated values must agree with each other and with the curve
     vr = v["machine.rated_voltage_V"]
     ir = v["machine.rated_current_A"]
-    pr = v["machine.rated_power_kW"] * 1e3
+    pr = (v["machine.rated_power_kW"] or 0.0) * 1e3
     nr = v["machine.rated_speed_rpm"]
-    if pr > vr * ir * 1.0001:
+    if not pr:
+        cfg.warnings.append("machine.rated_power_kW not given: the rating cross-check (power against rated voltage x current) is skipped")
+    elif pr > vr * ir * 1.0001:
         raise ConfigError(
             f"{src}: machine.rated_power_kW: must not exceed rated voltage x rated current "
             f"({vr * ir / 1e3:.1f} kW), got {pr / 1e3:g}"
         )
-    if pr < 0.3 * vr * ir:
+    if pr and pr < 0.3 * vr * ir:
         raise ConfigError(
             f"{src}: machine.rated_power_kW: below 30 % of rated voltage x rated current "
             f"({vr * ir / 1e3:.1f} kW) is not a plausible rating, got {pr / 1e3:g}"
@@ -254,7 +324,9 @@ def _check_machine(cfg: Config) -> None:
             f"voltage ({vr:g} V): curve and ratings disagree, got last point {es[-1]:g}"
         )
     if conn != "series":
-        fr = v["machine.field_resistance_ohm"] * (235.0 + v["machine.field_temp_C"]) / (235.0 + v["machine.resistance_ref_C"])
+        fr = v["machine.field_resistance_ohm"]
+        if not v["machine.resistances_as_measured"]:
+            fr *= (235.0 + v["machine.field_temp_C"]) / (235.0 + v["machine.resistance_ref_C"])
         vf = (fr + v["machine.field_rheostat_ohm"]) * v["machine.rated_field_current_A"]
         if conn != "separate" and vf > 1.2 * vr:
             raise ConfigError(
@@ -284,6 +356,10 @@ def _check_converter(cfg: Config) -> None:
     period = v["frame.period_us"]
     if period is not None and period < 50.0:
         raise ConfigError(f"{src}: frame.period_us: must be at least 50 us (a few model steps), got {period!r}")
+    if period is not None and period > FRAME_PERIOD_MAX_US:
+        # a frame is one kernel call and one firing-angle update: beyond 0.1 s the controller
+        # would see the bridge once every few mains cycles, and the model runs seconds per call
+        raise ConfigError(f"{src}: frame.period_us: must be at most {FRAME_PERIOD_MAX_US:g} us (0.1 s), got {period!r}")
     if v["bridge.alpha_min_deg"] >= v["bridge.alpha_max_deg"]:
         raise ConfigError(
             f"{src}: bridge.alpha_max_deg: must exceed alpha_min_deg ({v['bridge.alpha_min_deg']:g}), "

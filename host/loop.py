@@ -41,8 +41,12 @@ REC_COLUMNS = (
     "controller_trip", "trip_code", "armature_current_A", "armature_current_peak_A", "field_current_A",
     "terminal_voltage_V", "emf_V", "speed_rpm", "torque_Nm", "load_torque_Nm", "firing_angle_deg",
     "armature_temperature_C", "model_status", "host_status", "link_ok", "op_speed_ref_rpm",
-    "host_work_us",
+    "host_work_us", "link_errors", "refused_commands",
 )  # fmt: skip
+# link_errors: running total of every detected link error (CRC, COBS, runt, oversize, torn,
+# bad frame, sequence gap/repeat/out-of-order/restart, unexpected kind); refused_commands:
+# running total of commands refused (malformed, inapplicable, out of range). Both also go to
+# the events with their classes, and to the summary.
 R = {name: k for k, name in enumerate(REC_COLUMNS)}
 
 
@@ -62,6 +66,11 @@ class LoopStats:
     missed_commands: int = 0  # lockstep: frames advanced without a fresh command
     link_loss_events: int = 0
     deadline_misses: int = 0
+    end_stop_commands: int = 0  # firing angles applied at the converter's end stop (counted, not refused)
+    overspeed_frames: int = 0
+    rehandshakes: int = 0  # handshakes after the first: controller reconnected or restarted
+    watchdog_resets: int = 0
+    run_invalid: str = ""  # why the error-rate supervisor marked the run invalid ("" = valid)
     jitter_ns: np.ndarray | None = None
     granted: dict = field(default_factory=dict)  # what the OS allowed: priority, affinity, gc
 
@@ -129,7 +138,8 @@ class HostLoop:
     """
 
     def __init__(self, plant: Plant, session, frame_period_us: int, watchdog_periods: int = 10,
-                 on_link_loss: str = "block", record_rows: int = 65536, clock=time.perf_counter_ns):
+                 on_link_loss: str = "block", record_rows: int = 65536, clock=time.perf_counter_ns,
+                 max_error_rate: float = 0.01, error_rate_min_frames: int = 100):
         if on_link_loss not in ("block", "hold"):
             raise ConfigError(f"link: on_link_loss: expected one of ['block', 'hold'], got {on_link_loss!r}")
         self._step = plant.kernel()  # the build for this plant's codes, fetched once per run
@@ -145,6 +155,10 @@ class HostLoop:
         self.u[L.U_BRIDGE_SELECT] = 0.0
         self.y = np.zeros(L.N_OUTPUT)
         self.watchdog_periods = watchdog_periods
+        # the error-rate supervisor: detected link errors per frame above this (after at least
+        # error_rate_min_frames frames) mark the run invalid; the run goes on, the record says so
+        self.max_error_rate = max_error_rate
+        self.error_rate_min_frames = error_rate_min_frames
         self.on_link_loss = on_link_loss
         self.clock = clock
         self.sensors = Sensors(plant)
@@ -156,14 +170,94 @@ class HostLoop:
         self.last_cmd = sig.Command()
         self.fb = sig.Feedback()
         self._no_cmd_frames = 0
-        self._link_lost = False
+        self._link_lost = False  # the watchdog reaction, latched until reset_watchdog()
+        self._held_cmd: sig.Command | None = None  # "hold": the command held since the loss
+        self._latched_cmd_logged = False
         self._trip_logged = False
+        self.applied_seq: int | None = None  # seq of the last command applied (FEEDBACK.ack_seq)
+        self._handshakes_seen = getattr(session, "handshakes", 0)
+        self.overspeed_rpm = float(plant.machine.values["machine.max_speed_rpm"]
+                                   or 1.2 * plant.machine.values["machine.rated_speed_rpm"])
+        self._overspeed = False
+        self._link_err_seen = 0
+        self._link_err_last: dict = {}
+        self._refused_seen = 0
+        self._refused_now = False  # a command was refused in this frame (HOST_COMMAND_REFUSED)
+        self.lockstep = False  # set by run_lockstep (HOST_LOCKSTEP in every feedback)
         self.hooks = []  # callables hook(loop) before each frame (scenario timeline, faults)
         self.supply = int(self.p[L.P_SUPPLY_KIND])
         self.field_kind = int(self.p[L.P_FIELD_SUPPLY_KIND])
         self.vdo = firing.vdo(float(self.p[L.P_MAINS_VLL_V]))
         self.field_vac = float(self.p[L.P_FIELD_VAC_V])
+        self._limits = self._command_limits(plant)
+        if session is not None:
+            session.command_check = self.command_refusal
+            v = plant.machine.values
+            session.sensors = (int(round(v["sensors.tacho_V_per_1000rpm"] * 1000.0)),  # uV per rpm
+                               4 * int(v["sensors.encoder_ppr"]))
         self._step(self.x, self.p, self.u, self.y, 0)  # outputs of the initial state, compiles if needed
+
+    # ------------------------------------------------------------------ command rules
+    def _command_limits(self, plant: Plant) -> dict:
+        """What this plant accepts: armature modes, bridge selections and value ranges
+        (docs/protocol.md section 8). Beyond a range a value cannot be a command for this
+        machine (a firing angle of 1e12 deg); it is refused, never clamped."""
+        v = plant.machine.values
+        vr = v["machine.rated_voltage_V"]
+        ir = v["machine.rated_current_A"]
+        supply = int(self.p[L.P_SUPPLY_KIND])
+        if supply == L.SUPPLY_DC:
+            modes = {sig.MODE_VOLTAGE}
+            selects = {sig.BRIDGE_BLOCKED, sig.BRIDGE_FORWARD}
+        elif supply == L.SUPPLY_CURRENT:
+            modes = {sig.MODE_CURRENT}
+            selects = {sig.BRIDGE_BLOCKED, sig.BRIDGE_FORWARD, sig.BRIDGE_REVERSE}
+        elif supply == L.SUPPLY_BRIDGE:
+            modes = {sig.MODE_FIRING_ANGLE, sig.MODE_VOLTAGE}
+            selects = {sig.BRIDGE_BLOCKED, sig.BRIDGE_FORWARD}
+        else:  # dual bridge, averaged bridge (four quadrants)
+            modes = {sig.MODE_FIRING_ANGLE, sig.MODE_VOLTAGE}
+            selects = {sig.BRIDGE_BLOCKED, sig.BRIDGE_FORWARD, sig.BRIDGE_REVERSE}
+        vdo = self.vdo if supply not in (L.SUPPLY_DC, L.SUPPLY_CURRENT) else 0.0
+        v_lim = 1.5 * vdo if vdo > 0.0 else 2.0 * vr
+        vf_lim = 3.0 * max(vr, math.sqrt(2.0) * self.field_vac, plant.derived.get("field_voltage_rated_V", 0.0))
+        return {
+            "modes": modes, "selects": selects, "supply": supply,
+            sig.MODE_FIRING_ANGLE: (0.0, 180.0, "deg"),
+            sig.MODE_VOLTAGE: (-v_lim, v_lim, "V"),
+            sig.MODE_CURRENT: (-10.0 * ir, 10.0 * ir, "A"),
+            "field": {sig.FIELD_MODE_FIRING_ANGLE: (0.0, 180.0, "deg"), sig.FIELD_MODE_VOLTAGE: (-vf_lim, vf_lim, "V")},
+            "alpha_end_stops": (math.degrees(self.p[L.P_ALPHA_MIN_RAD]), math.degrees(self.p[L.P_ALPHA_MAX_RAD])),
+        }
+
+    def command_refusal(self, cmd: sig.Command) -> tuple[str, str] | None:
+        """(class, reason) when this plant must not apply cmd, else None. Classes:
+        mode_not_applicable, bridge_not_applicable, out_of_range (field values included)."""
+        lim = self._limits
+        if cmd.mode not in lim["modes"]:
+            names = {0: "firing angle", 1: "voltage", 2: "current"}
+            return ("mode_not_applicable", f"{names[cmd.mode]} mode does not apply to this supply "
+                    f"({', '.join(names[m] for m in sorted(lim['modes']))} only)")
+        if cmd.bridge_select not in lim["selects"]:
+            return ("bridge_not_applicable", f"bridge_select {cmd.bridge_select} on a supply without a reverse bridge")
+        lo, hi, unit = lim[cmd.mode]
+        if not lo <= cmd.armature_cmd <= hi:
+            return ("out_of_range", f"armature_cmd {cmd.armature_cmd:g} {unit} outside [{lo:g}, {hi:g}]")
+        lo, hi, unit = lim["field"][cmd.field_mode]
+        if not lo <= cmd.field_cmd <= hi:
+            return ("out_of_range", f"field_cmd {cmd.field_cmd:g} {unit} outside [{lo:g}, {hi:g}]")
+        return None
+
+    def reset_watchdog(self, source: str) -> None:
+        """The explicit reset that clears a latched watchdog reaction (CONTROL reset from the
+        controller, or the operator). Valid commands alone never clear it."""
+        if self._link_lost:
+            self._link_lost = False
+            self._held_cmd = None
+            self._latched_cmd_logged = False
+            self.stats.watchdog_resets += 1
+            self.event("link", f"watchdog reaction reset by {source}")
+        self._no_cmd_frames = 0
 
     # ------------------------------------------------------------------ mapping
     def apply_command(self, cmd: sig.Command) -> None:
@@ -214,31 +308,52 @@ class HostLoop:
             status |= sig.HOST_WATCHDOG_TRIPPED
         if status >> 8:
             status |= sig.HOST_MODEL_ALARM
+        if self._overspeed:
+            status |= sig.HOST_OVERSPEED | sig.HOST_MODEL_ALARM
+        if self._refused_now:
+            status |= sig.HOST_COMMAND_REFUSED
+        if self.lockstep:
+            status |= sig.HOST_LOCKSTEP
         fb.host_status = status
         fb.op_run = self.operator.run
         fb.op_stop = self.operator.stop
         fb.op_speed_ref_rpm = self.operator.speed_ref_rpm
-        if self.session is not None:
-            fb.ack_seq = self.session.last_command_seq or 0
+        sess = self.session
+        if sess is not None and getattr(sess, "handshakes", 0) != self._handshakes_seen:
+            self._handshakes_seen = sess.handshakes  # a new session: nothing of it applied yet
+            self.applied_seq = None
+        fb.ack_seq = sig.ACK_NONE if self.applied_seq is None else self.applied_seq
         return fb
 
     # ------------------------------------------------------------------ one frame
     def _advance(self, cmd: sig.Command | None, work_start_ns: int) -> None:
         if cmd is not None:
-            self.last_cmd = cmd
             self.stats.commands += 1
             self._no_cmd_frames = 0
             if self._link_lost:
-                self._link_lost = False
-                self.event("link", "valid commands again")
+                # latched: a valid command is received but not applied until a reset
+                if not self._latched_cmd_logged:
+                    self._latched_cmd_logged = True
+                    self.event("link", "valid commands again; the watchdog reaction stays latched until a reset")
+            if not (self._link_lost and self.on_link_loss == "hold"):  # hold keeps the command held at the loss
+                self.last_cmd = cmd
+                if not self._link_lost:
+                    self.applied_seq = cmd.seq
+                    lo, hi = self._limits["alpha_end_stops"]
+                    if cmd.mode == sig.MODE_FIRING_ANGLE and cmd.bridge_select and not lo <= cmd.armature_cmd <= hi:
+                        self.stats.end_stop_commands += 1
+                        if self.stats.end_stop_commands == 1:
+                            self.event("command", f"firing angle {cmd.armature_cmd:g} deg applied at the converter's "
+                                                  f"end stop [{lo:g}, {hi:g}] deg (counted)")
         else:
             self._no_cmd_frames += 1
             self.stats.missed_commands += 1
             if self._no_cmd_frames >= self.watchdog_periods and not self._link_lost:
                 self._link_lost = True
                 self.stats.link_loss_events += 1
+                self._held_cmd = self.last_cmd
                 self.event("link", f"link loss: no valid command for {self._no_cmd_frames} frames; "
-                                   f"reaction: {self.on_link_loss}")
+                                   f"reaction: {self.on_link_loss} (latched until a reset)")
         c = self.last_cmd
         if self._link_lost and self.on_link_loss == "block":
             c = sig.Command(mode=c.mode, bridge_select=sig.BRIDGE_BLOCKED, armature_cmd=c.armature_cmd,
@@ -249,6 +364,15 @@ class HostLoop:
         self.apply_command(c)
         self.u[L.U_CONTACTOR] = float(self.sensors.contactor_closed)
         self._step(self.x, self.p, self.u, self.y, self.n_sub)
+        over = abs(self.y[L.Y_SPEED_RPM]) > self.overspeed_rpm
+        if over:
+            self.stats.overspeed_frames += 1
+            if not self._overspeed:
+                self.event("model", f"overspeed: {self.y[L.Y_SPEED_RPM]:.0f} r/min above the machine's limit "
+                                    f"{self.overspeed_rpm:.0f} r/min")
+        self._overspeed = over
+        if self.session is not None:
+            self._note_link_errors()
         if c.trip and not self._trip_logged:
             self._trip_logged = True
             self.event("trip", f"controller tripped, code {trip_label(c.trip_code)}")
@@ -285,7 +409,55 @@ class HostLoop:
         r[21] = 0.0 if self._link_lost else 1.0
         r[22] = self.operator.speed_ref_rpm
         r[23] = (self.clock() - work_start_ns) * 1e-3
+        r[24] = self._link_err_seen
+        r[25] = self._refused_seen
         self.n_rec = k + 1
+
+    # the counters that make up "link errors": each is a detected fault of the channel
+    LINK_ERROR_COUNTERS = ("crc_errors", "cobs_errors", "oversize", "runts", "torn", "bad_frames", "unexpected",
+                           "seq_gaps", "seq_repeats", "seq_out_of_order", "seq_restarts")
+
+    def link_error_counts(self) -> dict[str, int]:
+        """Detected link errors per class (see LINK_ERROR_COUNTERS), and refused commands per class."""
+        sess = self.session
+        d = sess.link.deframer
+        rx = sess.rx
+        out = {"crc_errors": d.crc_errors, "cobs_errors": d.cobs_errors, "oversize": d.oversize, "runts": d.runts,
+               "torn": getattr(d, "torn", 0), "bad_frames": sess.bad_frames, "unexpected": sess.unexpected,
+               "seq_gaps": rx.gaps, "seq_repeats": rx.repeats, "seq_out_of_order": rx.out_of_order,
+               "seq_restarts": rx.restarts}
+        for cls, n in getattr(sess, "refused", {}).items():
+            out[f"refused_{cls}"] = n
+        return out
+
+    def _note_link_errors(self) -> None:
+        """One event per frame in which a counter moved, naming the classes (constant work:
+        a sum of a dozen integers per frame, the dict only when something changed)."""
+        sess = self.session
+        d = sess.link.deframer
+        rx = sess.rx
+        total = (d.crc_errors + d.cobs_errors + d.oversize + d.runts + getattr(d, "torn", 0) + sess.bad_frames
+                 + sess.unexpected + rx.gaps + rx.repeats + rx.out_of_order + rx.restarts)
+        refused = getattr(sess, "invalid_commands", 0)
+        self._refused_now = refused != self._refused_seen
+        if total == self._link_err_seen and not self._refused_now:
+            return
+        now = self.link_error_counts()
+        moved = {k: v - self._link_err_last.get(k, 0) for k, v in now.items() if v != self._link_err_last.get(k, 0)}
+        self._link_err_last = now
+        self._link_err_seen = total
+        if refused != self._refused_seen:
+            self._refused_seen = refused
+        frames = max(self.stats.frames, 1)
+        if (not self.stats.run_invalid and self.max_error_rate is not None
+                and self.stats.frames >= self.error_rate_min_frames and total / frames > self.max_error_rate):
+            self.stats.run_invalid = (f"{total} link errors in {frames} frames, above the supervisor's "
+                                      f"{self.max_error_rate:g} per frame")
+            self.event("link", f"run invalid: {self.stats.run_invalid}")
+        text = ", ".join(f"{k} +{n}" for k, n in moved.items())
+        kind = "command" if all(k.startswith("refused_") for k in moved) else "link"
+        extra = f"; last refusal {sess.last_refusal}" if any(k.startswith("refused_") for k in moved) else ""
+        self.event(kind, f"errors detected: {text}{extra}")
 
     def event(self, kind: str, text: str) -> None:
         self.events.append((float(self.y[L.Y_TIME_S]), kind, text))
@@ -294,21 +466,46 @@ class HostLoop:
         return self.record[: self.n_rec]
 
     # ------------------------------------------------------------------ loops
-    def run_lockstep(self, n_frames: int, on_frame=None, command_timeout_s: float | None = None) -> LoopStats:
+    def run_lockstep(self, n_frames: int, on_frame=None, command_timeout_s: float | None = None,
+                     peer_timeout_s: float | None = None, handshake_timeout_s: float = 5.0) -> LoopStats:
         """Feedback -> wait for command -> one frame. Deterministic given the controller.
 
-        command_timeout_s: wall-clock wait per frame; after watchdog_periods empty waits the
-        link is lost. Default: watchdog_periods frame periods, at least 0.2 s.
+        command_timeout_s: wall-clock wait for the command answering each FEEDBACK; when it
+        passes the frame runs without a command (counted; after watchdog_periods of them the
+        watchdog reaction latches). Default: one frame period, at least 0.2 s.
+        peer_timeout_s: no valid command for this long (wall clock) means the controller is
+        dead or gone: the run ends with LinkTimeout (the caller keeps the record). None: never.
+        A controller that reconnects (listening link) or restarts (a HELLO after its
+        commands) gets a new handshake within handshake_timeout_s; the model stays where it is.
         """
+        from .errors import LinkTimeout
+
         sess = self.session
+        self.lockstep = True
         timeout = command_timeout_s or max(0.2, self.frame_period_us * 1e-6)
+        connects = getattr(sess.link, "connects", None)
         sess.send_feedback(self.make_feedback())
+        last_valid = time.monotonic()
         for _ in range(n_frames):
             cmd = sess.recv_command(timeout)
             t0 = self.clock()
             if cmd is None and sess.bye:
                 self.event("link", "controller said bye")
                 break
+            now_connects = getattr(sess.link, "connects", None)
+            if sess.peer_restarted or now_connects != connects:
+                connects = now_connects
+                self._rehandshake(handshake_timeout_s, "reconnected" if not sess.peer_restarted else "restarted")
+                sess.send_feedback(self.make_feedback())
+                continue
+            if cmd is not None:
+                last_valid = time.monotonic()
+            elif peer_timeout_s is not None and time.monotonic() - last_valid >= peer_timeout_s:
+                self._drain_events()
+                self.event("link", f"lockstep: no valid command for {peer_timeout_s:g} s: the controller is dead "
+                                   "or disconnected; run ended")
+                raise LinkTimeout(f"link '{sess.link.url}': lockstep: no valid command from the controller for "
+                                  f"{peer_timeout_s:g} s (dead or disconnected); run ended")
             self._drain_events()
             self._advance(cmd, t0)
             sess.send_feedback(self.make_feedback())
@@ -316,6 +513,14 @@ class HostLoop:
                 break
         self._drain_events()
         return self.stats
+
+    def _rehandshake(self, timeout_s: float, why: str) -> None:
+        """The controller came back: HELLO again; numbering and ack restart, the watchdog
+        latch (if set) stays until a reset."""
+        self._drain_events()
+        self.event("link", f"controller {why}: new handshake")
+        self.session.handshake(timeout_s=timeout_s)
+        self.stats.rehandshakes += 1
 
     def run_paced(self, n_frames: int, on_frame=None, busy_wait_us: float = 300.0,
                   realtime: bool = True) -> LoopStats:
@@ -392,6 +597,8 @@ class HostLoop:
                                    f"controller time {ev.controller_time_us} us")
             elif isinstance(ev, sig.ControlMessage):
                 self.event("control", f"control op {ev.op} value {ev.value:g} {ev.text}".strip())
+                if ev.op == sig.CTRL_RESET:
+                    self.reset_watchdog("the controller (CONTROL reset)")
 
     @staticmethod
     def _grant_realtime() -> dict:

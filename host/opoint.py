@@ -506,7 +506,7 @@ def solve_motor(
 def _solve_line_at_speed(c, vt, w, vf, plant):
     f = lambda i1: _resid(c, vt, i1, w, vf)
     ir = plant.p[L.P_RATED_IA_A]
-    span = 4.0 * ir + abs(vt) / (c.ra + c.rse)
+    span = 4.0 * ir + abs(vt) / max(c.ra + c.rse, 1e-3 * abs(vt) / ir if ir > 0 else 1e-6)
     for _ in range(40):
         if f(span) < 0.0 and f(-span) > 0.0:
             break
@@ -535,7 +535,7 @@ def _solve_torque(c, vt, t_load, vf, plant):
         return st.te - c.friction(st.w) - t_load
 
     ir = plant.p[L.P_RATED_IA_A]
-    span = max(10.0 * ir, 2.0 * abs(vt) / (c.ra + c.rse))
+    span = max(10.0 * ir, 2.0 * abs(vt) / max(c.ra + c.rse, 1e-3 * abs(vt) / ir if ir > 0 else 1e-6))
     rts, _, _ = roots(g, _grid(-span, span, n_lin=1601))
     if not rts:
         return None, None, (
@@ -698,12 +698,11 @@ def solve_generator(
 
 
 def _critical_field_ohm(plant, c, w):
-    """Largest slope of the curve at speed w: a field circuit above it cannot build up."""
-    p = plant.p
-    n = int(p[L.P_MAG_N])
-    ii = np.linspace(0.0, p[L.P_MAG_I0 + n - 1], 2001)
-    de = max(float(curve_emf_py(p, x)[1]) for x in ii)
-    return de * abs(w) / c.wc
+    """The critical field resistance at speed w, as `dcrig check` reports it
+    (host.params.critical_field_ohm: the tangent from the origin to the curve, residual off)."""
+    from .params import critical_field_ohm
+
+    return critical_field_ohm(plant.p, w)
 
 
 # ---------------------------------------------------------------------------------------------

@@ -73,7 +73,25 @@ def _copper(r_ref, temp_c, ref_c):
 
 
 def pack(machine: Config, converter: Config | None = None) -> Plant:
-    """Pack configs into arrays. Raises ConfigError if the step is too large for the plant."""
+    """Pack configs into arrays. Raises ConfigError if the step is too large for the plant, or
+    if values that pass their own rules together give a parameter the model cannot run with
+    (an overflow or a division by a vanishing value: never a numpy warning on the terminal)."""
+    import warnings
+
+    with np.errstate(all="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        plant = _pack(machine, converter)
+    names = {getattr(L, n): n for n in dir(L) if n.startswith("P_") and isinstance(getattr(L, n), int)}
+    for arr, what in ((plant.p, "parameter"), (plant.x0, "initial state"), (plant.u0, "input")):
+        bad = np.nonzero(~np.isfinite(arr))[0]
+        if len(bad):
+            label = names.get(int(bad[0]), f"#{int(bad[0])}") if what == "parameter" else f"#{int(bad[0])}"
+            raise ConfigError(f"{machine.source}: machine: the values together give a non-finite model "
+                              f"{what} ({label}); one value is far too small or too large, got {arr[bad[0]]!r}")
+    return plant
+
+
+def _pack(machine: Config, converter: Config | None = None) -> Plant:
     v = machine.values
     p = np.zeros(L.N_PARAM)
     conn_name = v["machine.connection"]
@@ -107,6 +125,7 @@ def pack(machine: Config, converter: Config | None = None) -> Plant:
         np.array(v["machine.magnetization.emf_V"]),
         v["machine.armature_reaction.armature_current_A"],
         v["machine.armature_reaction.field_equivalent_A"],
+        linear=v["machine.magnetization.interpolation"] == "piecewise_linear",
     )
     p[L.P_TEMP_REF_C] = v["machine.resistance_ref_C"]
     p[L.P_TEMP_AMBIENT_C] = v["machine.thermal.ambient_C"]
@@ -114,6 +133,12 @@ def pack(machine: Config, converter: Config | None = None) -> Plant:
     p[L.P_THERMAL_TAU_S] = v["machine.thermal.time_constant_s"]
     p[L.P_THERMAL_RISE_K] = v["machine.thermal.rated_rise_K"]
     p[L.P_THERMAL_FROZEN] = 1.0 if v["machine.thermal.frozen"] else 0.0
+    as_measured = v["machine.resistances_as_measured"]
+    if as_measured:
+        # every winding held at the reference temperature: the copper relation then returns
+        # each resistance unchanged, in the kernel and in every host calculation alike
+        p[L.P_TEMP_FIELD_C] = p[L.P_TEMP_REF_C]
+        p[L.P_THERMAL_FROZEN] = 1.0
     p[L.P_RATED_IA_A] = ir
     p[L.P_RATED_SPEED_RAD_S] = v["machine.rated_speed_rpm"] * RPM
     p[L.P_J_KGM2] = v["mechanics.inertia_kgm2"]
@@ -163,6 +188,8 @@ def pack(machine: Config, converter: Config | None = None) -> Plant:
     x0 = np.zeros(L.N_STATE)
     initial = v["machine.thermal.initial_C"]
     x0[L.X_TEMP_ARM_C] = v["machine.thermal.ambient_C"] if initial is None else initial
+    if as_measured:
+        x0[L.X_TEMP_ARM_C] = p[L.P_TEMP_REF_C]
     x0[L.X_THY_FIRE_AT0 : L.X_THY_FIRE_AT0 + L.N_THY] = -1.0
     x0[L.X_THY_OFF_S0 : L.X_THY_OFF_S0 + L.N_THY] = -1.0  # went off long ago: recovered
     x0[L.X_THY_GATE0 : L.X_THY_GATE0 + L.N_THY] = -1.0  # no gate pulse
@@ -211,6 +238,43 @@ def emf_at(p: np.ndarray, i_excitation_A: float, speed_rad_s: float) -> float:
     return e * speed_rad_s / p[L.P_MAG_SPEED_RAD_S]
 
 
+def critical_field_ohm(p: np.ndarray, speed_rad_s: float) -> float:
+    """Critical field resistance at speed w: the one definition dcrig uses (check and op).
+
+    The slope of the tangent drawn from the origin to the open-circuit curve with its
+    residual EMF taken off (the tangent construction of the machines textbooks):
+
+        R_c = max over i > 0 of (E(i) - E_res) / i, scaled by w / w_c.
+
+    On a curve that is straight at its foot this is the air-gap slope; where the foot bends
+    upwards first (an S-shaped start) the tangent touches the curve above the foot.
+    """
+    n = int(p[L.P_MAG_N])
+    e_res = float(p[L.P_MAG_E0])
+    i_max = float(p[L.P_MAG_I0 + n - 1])
+
+    def ratio(i):
+        return (curve_emf_py(p, i)[0] - e_res) / i
+
+    grid = np.linspace(0.0, i_max, 2001)[1:]
+    vals = np.array([ratio(x) for x in grid])
+    k = int(np.argmax(vals))
+    lo = grid[max(k - 1, 0)] if k > 0 else grid[0] * 1e-6
+    hi = grid[min(k + 1, len(grid) - 1)]
+    # golden-section refinement of the maximum between the grid neighbours
+    g = (math.sqrt(5.0) - 1.0) / 2.0
+    a, b = lo, hi
+    for _ in range(80):
+        c1 = b - g * (b - a)
+        c2 = a + g * (b - a)
+        if ratio(c1) >= ratio(c2):
+            b = c2
+        else:
+            a = c1
+    best = max(ratio(0.5 * (a + b)), float(vals[k]))
+    return best * abs(speed_rad_s) / float(p[L.P_MAG_SPEED_RAD_S])
+
+
 def derive(plant: Plant) -> dict:
     """Rated EMF, flux constant, time constants, critical field resistance, step limits."""
     p = plant.p
@@ -220,6 +284,8 @@ def derive(plant: Plant) -> dict:
     vr = v["machine.rated_voltage_V"]
     wr = p[L.P_RATED_SPEED_RAD_S]
     t_hot = v["machine.thermal.ambient_C"] + v["machine.thermal.rated_rise_K"]
+    if v["machine.resistances_as_measured"]:
+        t_hot = p[L.P_TEMP_REF_C]
     ra_hot = _copper(p[L.P_RA_OHM], t_hot, p[L.P_TEMP_REF_C])
     rse = _copper(p[L.P_RSE_OHM], p[L.P_TEMP_FIELD_C], p[L.P_TEMP_REF_C])
     rf = _copper(p[L.P_RF_OHM], p[L.P_TEMP_FIELD_C], p[L.P_TEMP_REF_C]) + p[L.P_RHEO_OHM]
@@ -237,7 +303,7 @@ def derive(plant: Plant) -> dict:
     j = p[L.P_J_KGM2] + p[L.P_J_LOAD_KGM2]
     la = p[L.P_LA_H]
     taus = {}
-    taus["armature_s"] = la / r_arm
+    taus["armature_s"] = la / r_arm if r_arm > 0 else math.inf  # Ra = 0: no decay, no step limit from it
     if kphi_rated > 0:
         taus["mechanical_s"] = j * r_arm / kphi_rated**2
     slope0 = p[L.P_MAG_SLOPE0]
@@ -248,8 +314,8 @@ def derive(plant: Plant) -> dict:
         taus["field_unsaturated_s"] = (p[L.P_LM0_H] + p[L.P_LF_LEAK_H]) / rf
         taus["field_at_rated_s"] = lf_rated / rf
         d["emf_curve_at_rated_field_V"] = emf_at(p, i_f, wr)
-        # critical field resistance: slope of the curve's straight part at this speed
-        d["critical_field_ohm_at_rated_speed"] = slope0 * wr / p[L.P_MAG_SPEED_RAD_S]
+        # critical field resistance: the tangent from the origin (one definition, shared with op)
+        d["critical_field_ohm_at_rated_speed"] = critical_field_ohm(p, wr)
         d["field_voltage_rated_V"] = rf * i_f
     # no-load speed at rated voltage (motor, flux at rated field current or at rated current)
     if conn == L.CONN_SERIES:
@@ -258,14 +324,26 @@ def derive(plant: Plant) -> dict:
         kphi_nl = emf_at(p, v["machine.rated_field_current_A"], 1.0)
         if kphi_nl > 0:
             d["no_load_speed_rpm"] = (vr / kphi_nl) / RPM
-    # the fastest electrical mode: armature loop with the supply, or the friction regulariser
+    # the fastest mode the fixed step must resolve: armature loop with the supply, the field
+    # circuit (its inductance falls with saturation, so the rated point counts as well as the
+    # straight part), the electromechanical oscillation 1/w0 = sqrt(tau_a tau_m) of armature
+    # and shaft (complex eigenvalues when tau_m < 4 tau_a; their magnitude sets the step), or
+    # the friction regulariser
     tau_fast = [taus["armature_s"]]
+    for name in ("field_unsaturated_s", "field_at_rated_s"):
+        if name in taus:
+            tau_fast.append(taus[name])
+    if "mechanical_s" in taus:
+        tau_fast.append(math.sqrt(taus["armature_s"] * taus["mechanical_s"]))
     load_ohm = v["terminal.load_ohm"]
     if load_ohm > 0:
         tau_fast.append((la + p[L.P_LSE_LEAK_H]) / (load_ohm + r_arm))
     if plant.converter is not None and int(p[L.P_SUPPLY_KIND]) == L.SUPPLY_CURRENT:
         tau_fast.append(p[L.P_ISRC_TAU_S])
     tau_min = min(tau_fast)
+    if not (math.isfinite(tau_min) and tau_min > 0.0):
+        raise ConfigError(f"{plant.machine.source}: machine: the values together give no finite positive "
+                          f"time constant (fastest {tau_min!r} s); check la_H, ra_ohm and the field keys")
     d["time_constants_s"] = taus
     d["tau_min_s"] = tau_min
     d["stable_step_us"] = 2.0 * tau_min * 1e6  # Heun: real eigenvalue limit h < 2 tau

@@ -226,10 +226,33 @@ def summary_lines(loop: HostLoop, timeline: Timeline, wall_s: float) -> list[str
     for s_ in rows[:, R["model_status"]].astype(int):
         status |= s_
     flags = [name for bit, name in L.ST_NAMES.items() if status & bit]
+    if loop.stats.overspeed_frames:
+        flags.append(f"overspeed ({loop.stats.overspeed_frames} frames above {loop.overspeed_rpm:.0f} r/min)")
     lines.append(f"model flags seen: {', '.join(flags) if flags else 'none'}")
+    if loop.session is not None:
+        lines.append("link: " + link_health(loop))
     trips = [e for e in loop.events if e[1] == "trip"]
     lines.append("controller trips: " + ("; ".join(f"{e[2]} at {e[0]:.3f} s" for e in trips) if trips else "none"))
     return lines
+
+
+def link_health(loop: HostLoop) -> str:
+    """Every detected link error and refused command by class, the same counts as the events
+    and the frame record's link_errors / refused_commands columns."""
+    counts = loop.link_error_counts()
+    errs = {k: v for k, v in counts.items() if not k.startswith("refused_")}
+    refused = {k[8:]: v for k, v in counts.items() if k.startswith("refused_")}
+    n_err = sum(errs.values())
+    text = f"{n_err} errors detected" + (f" ({', '.join(f'{k} {v}' for k, v in errs.items() if v)})" if n_err else "")
+    n_ref = sum(refused.values())
+    text += f"; commands refused {n_ref}" + (f" ({', '.join(f'{k} {v}' for k, v in refused.items() if v)})" if n_ref else "")
+    st = loop.stats
+    text += f"; firing angles at the end stop {st.end_stop_commands}; new handshakes {st.rehandshakes}"
+    if st.watchdog_resets:
+        text += f"; watchdog resets {st.watchdog_resets}"
+    if st.run_invalid:
+        text += f"; RUN INVALID: {st.run_invalid}"
+    return text
 
 
 def send_bye(session) -> None:
@@ -241,7 +264,8 @@ def send_bye(session) -> None:
 
 def run_closed_loop(plant, link, *, encoding: str, paced: bool, timeline: Timeline, out_dir,
                     watchdog_periods: int = 10, on_link_loss: str = "block", handshake_timeout_s: float = 20.0,
-                    plot: bool = True, out=None) -> HostLoop:
+                    plot: bool = True, out=None, command_timeout_s: float = 2.0,
+                    peer_timeout_s: float = 5.0, max_error_rate: float | None = 0.01) -> HostLoop:
     """Handshake on `link`, run the timeline lockstep or paced, print the summary, write files."""
     out = out if out is not None else sys.stdout  # looked up per call (tests swap sys.stdout)
     from .link import HostSession
@@ -250,8 +274,11 @@ def run_closed_loop(plant, link, *, encoding: str, paced: bool, timeline: Timeli
     period_us = int(round(plant.derived["frame_period_us"]))
     n_frames = int(timeline.end_s / (period_us * 1e-6)) + 1
     session = HostSession(link, encoding=encoding, frame_period_us=period_us)
-    loop = HostLoop(plant, session, period_us, watchdog_periods=watchdog_periods, on_link_loss=on_link_loss)
+    loop = HostLoop(plant, session, period_us, watchdog_periods=watchdog_periods, on_link_loss=on_link_loss,
+                    max_error_rate=max_error_rate)
     peer = session.handshake(timeout_s=handshake_timeout_s)
+    if hasattr(link, "release_peer_hold"):
+        link.release_peer_hold()  # a pty: the controller holds its end now; its death closes the cable
     supply = plant.converter["converter.name"] if plant.converter else "DC source"
     print(f"{plant.machine['machine.name']} on {supply}; controller on {link.url} (protocol "
           f"{peer.protocol_version}, {encoding}); frame {period_us} us = {loop.n_sub} model steps of "
@@ -264,7 +291,8 @@ def run_closed_loop(plant, link, *, encoding: str, paced: bool, timeline: Timeli
         if paced:
             loop.run_paced(n_frames, on_frame=status)
         else:
-            loop.run_lockstep(n_frames, on_frame=status, command_timeout_s=max(0.2, 2.0))
+            loop.run_lockstep(n_frames, on_frame=status, command_timeout_s=command_timeout_s,
+                              peer_timeout_s=peer_timeout_s, handshake_timeout_s=handshake_timeout_s)
     except (KeyboardInterrupt, DcrigError) as err:
         # keep what was recorded: summary and files first, then the error goes on
         stopped = err

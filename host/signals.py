@@ -31,6 +31,10 @@ HOST_WATCHDOG_TRIPPED = 1 << 1  # host saw no valid command for the watchdog per
 HOST_FAULT_ACTIVE = 1 << 2  # an injected fault is active (never tells which)
 HOST_LOCKSTEP = 1 << 3  # host runs lockstep (1) or paced real time (0)
 HOST_MODEL_ALARM = 1 << 4  # model reported an abnormal condition (see event stream)
+HOST_OVERSPEED = 1 << 5  # model speed above the machine's limit (machine.max_speed_rpm, default 1.2 x rated)
+HOST_COMMAND_REFUSED = 1 << 6  # the last command received was refused (out of range or inapplicable)
+
+ACK_NONE = 0xFFFF  # Feedback.ack_seq before the host applied any command of this session
 
 
 @dataclass(slots=True)
@@ -53,7 +57,7 @@ class Feedback:
     """Host -> controller, once per frame: what the controller's sensors would read."""
 
     seq: int = 0  # host's own counter, wraps at 65536
-    ack_seq: int = 0  # seq of the last valid command the host applied
+    ack_seq: int = ACK_NONE  # seq of the last valid command the host applied; ACK_NONE before any
     model_time_us: int = 0  # host model time (wraps at 2**32 us)
     armature_current_A: float = 0.0
     field_current_A: float = 0.0
@@ -87,10 +91,11 @@ class ControlMessage:
     text: str = field(default="")
 
 
-CTRL_RESET = 1  # reset trips / restart the model
-CTRL_SCENARIO_START = 2
-CTRL_SCENARIO_STOP = 3
-CTRL_SET_RUN = 4  # value 0/1
-CTRL_SET_STOP = 5  # value 0/1
-CTRL_SET_SPEED_REF_RPM = 6  # value rpm
-CTRL_BYE = 7  # orderly end of session
+# CONTROL operations (docs/protocol.md section 6.4 gives meaning and direction of each)
+CTRL_RESET = 1  # controller -> host: clear the latched watchdog reaction; host -> controller: reset trips
+CTRL_SCENARIO_START = 2  # host -> controller: a scenario (test sequence) starts, text = its name
+CTRL_SCENARIO_STOP = 3  # host -> controller: the scenario ended, text = its name
+CTRL_SET_RUN = 4  # host -> controller: operator run input, value 0/1
+CTRL_SET_STOP = 5  # host -> controller: operator stop input, value 0/1
+CTRL_SET_SPEED_REF_RPM = 6  # host -> controller: operator speed reference, value rpm
+CTRL_BYE = 7  # either direction: orderly end of session

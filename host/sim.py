@@ -117,6 +117,57 @@ def parse_ramp(text: str) -> Segment:
     return Segment(name, t0, t1, v0, v1)
 
 
+def input_limits(plant: Plant) -> dict[str, tuple[float, float, str]]:
+    """Plausible range of each named input, in its user unit, for this plant: (lo, hi, basis).
+
+    A value outside cannot describe a test of this machine (1e30 V on a 440 V armature); the
+    model would only overflow, so it is refused before the run, naming the input."""
+    v = plant.machine.values
+    vr = v["machine.rated_voltage_V"]
+    ir = v["machine.rated_current_A"]
+    n_max = v["machine.max_speed_rpm"] or 1.2 * v["machine.rated_speed_rpm"]
+    t_r = abs(plant.derived["rated_torque_Nm"])
+    vf = max(vr, plant.derived.get("field_voltage_rated_V", 0.0))
+    vdo = plant.derived.get("vdo_V", vr)
+    lim = {
+        "terminal_voltage_V": (-10 * vr, 10 * vr, "10 x rated voltage"),
+        "bridge_voltage_ref_V": (-10 * vdo, 10 * vdo, "10 x the bridge's Vdo"),
+        "firing_angle_deg": (0.0, 180.0, "a firing angle"),
+        "field_angle_deg": (0.0, 180.0, "a firing angle"),
+        "bridge": (0.0, 2.0, "0 blocked, 1 forward, 2 reverse"),
+        "current_ref_A": (-10 * ir, 10 * ir, "10 x rated current"),
+        "field_voltage_V": (-10 * vf, 10 * vf, "10 x the rated field or armature voltage"),
+        "load_torque_Nm": (-10 * t_r, 10 * t_r, "10 x rated torque"),
+        "prime_speed_rpm": (-3 * n_max, 3 * n_max, "3 x the maximum speed"),
+        "load_ohm": (0.0, 1e9, "a resistor, ohm"),
+        "mains_pu": (0.0, 2.0, "per unit of the rated mains voltage"),
+        "mains_hz_dev": (-0.2 * 400, 0.2 * 400, "a frequency deviation, Hz"),
+        "misfire_mask": (0.0, 63.0, "a bit per thyristor"),
+        "short_mask": (0.0, 63.0, "a bit per thyristor"),
+        "fuse_blown_mask": (0.0, 7.0, "a bit per phase"),
+    }
+    for name in INPUTS:
+        lim.setdefault(name, (0.0, 1.0, "0 or 1"))
+    return lim
+
+
+def check_inputs(plant: Plant, segments: list[Segment], where: dict[str, str] | None = None) -> None:
+    """Refuse a segment whose value lies outside input_limits(): the error names the input."""
+    lim = input_limits(plant)
+    for seg in segments:
+        lo, hi, basis = lim[seg.name]
+        for val in (seg.v0, seg.v1):
+            if not lo <= val <= hi:
+                opt = (where or {}).get(seg.name, "--set-input/--change/--ramp")
+                raise ConfigError(f"{opt}: {seg.name}: must be within [{lo:g}, {hi:g}] ({basis}), got {val!r}")
+
+
+def overspeed_limit_rpm(plant: Plant) -> float:
+    """The speed above which a run is flagged: machine.max_speed_rpm, default 1.2 x rated."""
+    v = plant.machine.values
+    return float(v["machine.max_speed_rpm"] or 1.2 * v["machine.rated_speed_rpm"])
+
+
 def apply_profile(u: np.ndarray, u_start: np.ndarray, segments: list[Segment], t_s: float,
                   vdo_V: float = 0.0) -> None:
     """Set u for time t_s: the start value, then each segment in order (later ones win).
@@ -165,6 +216,52 @@ def run_offline(plant: Plant, t_end_s: float, sample_s: float, segments: list[Se
             Y = Y[: k + 2]
             break
     return Y[:, L.Y_TIME_S].copy(), Y
+
+
+def steady_start_state(plant: Plant) -> np.ndarray:
+    """The initial state of a motor already running in steady state on its DC source: field
+    up and the speed where the motor's torque meets the configured load (host.opoint), so a
+    run can start there instead of from rest. Speed-dependent loads (proportional, quadratic)
+    are met by fixed-point iteration on the load law.
+
+    Raises ConfigError where no such state exists or the supply is not a DC source."""
+    from . import opoint
+
+    v = plant.machine.values
+    src = plant.machine.source
+    if plant.converter is not None:
+        raise ConfigError("--from-steady: starts from the DC source's steady state; give no --converter "
+                          f"(a bridge's steady state depends on the firing angle), got {plant.converter.source}")
+    if v["machine.duty"] != "motor":
+        raise ConfigError(f"{src}: machine.duty: --from-steady needs a motor, got {v['machine.duty']!r}")
+    vt = float(plant.u0[L.U_VT_V])
+    kind = v["mechanics.load"]
+    t_set = float(plant.u0[L.U_LOAD_TORQUE_NM])
+    w_r = v["machine.rated_speed_rpm"] * RPM
+    if kind == "prime_mover":
+        op = opoint.solve_motor(plant, vt, speed_rpm=float(plant.u0[L.U_PRIME_SPEED_RAD_S]) / RPM)
+    else:
+        law = {"none": lambda w: 0.0, "constant": lambda w: abs(t_set), "overhauling": lambda w: t_set,
+               "proportional": lambda w: t_set * w / w_r, "quadratic": lambda w: t_set * (w / w_r) ** 2}[kind]
+        w = w_r
+        op = None
+        for _ in range(60):
+            op = opoint.solve_motor(plant, vt, load_torque_Nm=law(w))
+            if op.state is None:
+                break
+            if abs(op.state.w - w) < 1e-9 * max(abs(w), 1.0):
+                break
+            w = op.state.w
+    if op is None or op.state is None:
+        why = getattr(op, "reason", "") if op is not None else ""
+        raise ConfigError(f"{src}: mechanics.load: --from-steady: no steady running state at {vt:g} V with this load"
+                          + (f" ({why})" if why else ""))
+    st = op.state
+    x = plant.new_state()
+    x[L.X_I_LINE_A] = st.i1
+    x[L.X_I_FIELD_A] = st.ish
+    x[L.X_SPEED_RAD_S] = st.w
+    return x
 
 
 CSV_COLUMNS = (

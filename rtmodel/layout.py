@@ -205,6 +205,7 @@ P_FIELD_ALPHA_MIN_RAD = _block("P_", ["FIELD_ALPHA_MIN_RAD"])
 P_DT_S = _block("P_", ["DT_S"])  # fixed model step
 P_ENCODER_PPR = _block("P_", ["ENCODER_PPR"])
 P_TACHO_V_PER_RPM = _block("P_", ["TACHO_V_PER_RPM"])
+P_MAG_LINEAR = _block("P_", ["MAG_LINEAR"])  # 1: the curve is piecewise linear between points, 0: monotone cubic
 PARAM_NAMES = tuple(_names)
 N_PARAM = len(_names)
 

@@ -8,7 +8,9 @@ residual EMF; i and E strictly increase. Between points a monotone piecewise cub
 curve (Fritsch & Carlson 1980 slopes, as in scipy's PchipInterpolator) is used, so the curve
 never overshoots between measured points. The end slopes are the secant slopes of the end
 segments, so past the last point the curve continues as a straight line with the slope of the
-last measured segment (deep saturation: small but positive incremental permeability).
+last measured segment (deep saturation: small but positive incremental permeability). With P_MAG_LINEAR set
+the curve is instead straight between the points (its slope jumps at each point), as hand
+calculations read a curve.
 
 For negative excitation the curve is point-mirrored, with the residual EMF fading out over the
 first table segment:  E(i) = -E_tab(-i) + 2 E_res max(0, 1 + i/i_1).  The model has no
@@ -34,6 +36,7 @@ from .layout import (
     P_MAG_I0,
     P_MAG_INV_SLOPE0,
     P_MAG_INVH0,
+    P_MAG_LINEAR,
     P_MAG_N,
     P_MAG_SLOPE0,
 )
@@ -69,8 +72,12 @@ def pchip_slopes(i_A, e_V):
     return d
 
 
-def pack_curve(p, i_A, e_V, ar_ia_A=(), ar_if_A=()):
-    """Write the magnetization and armature-reaction tables into the parameter array p."""
+def pack_curve(p, i_A, e_V, ar_ia_A=(), ar_if_A=(), linear=False):
+    """Write the magnetization and armature-reaction tables into the parameter array p.
+
+    linear: straight lines between the points (the last segment's slope past the ends, as
+    for the cubic) instead of the monotone cubic."""
+    p[P_MAG_LINEAR] = 1.0 if linear else 0.0
     n = len(i_A)
     if not 2 <= n <= MAG_MAX_POINTS:
         raise ValueError(f"magnetization table needs 2..{MAG_MAX_POINTS} points, got {n}")
@@ -114,6 +121,10 @@ def _curve_pos(p, i):
     inv_h = p[P_MAG_INVH0 + lo]
     y0 = p[P_MAG_E0 + lo]
     y1 = p[P_MAG_E0 + hi]
+    if p[P_MAG_LINEAR] > 0.5:
+        # straight lines between the points, as a hand calculation reads a curve
+        slope_seg = (y1 - y0) * inv_h
+        return y0 + slope_seg * (i - x0), slope_seg
     d0 = p[P_MAG_D0 + lo]
     d1 = p[P_MAG_D0 + hi]
     t = (i - x0) * inv_h

@@ -91,6 +91,28 @@ class MagCurve:
         self.e_res = float(self.e[0])
         self.i1 = float(self.i[1])
 
+    def tangent_from_origin_slope(self) -> float:
+        """The textbook tangent construction on the curve with the residual taken off: the
+        line through the origin that touches E(i) - E_res. Its touching point solves
+        E'(i) i = E(i) - E_res (found here with scipy's brentq); on a curve that is concave
+        from the foot it touches at the origin and the slope is E'(0)."""
+        from scipy.optimize import brentq
+
+        def g(i):
+            e, de = self._pos(i)
+            return de * i - (e - self.e_res)
+
+        grid = np.linspace(1e-9, self.i[-1], 4001)
+        vals = [g(x) for x in grid]
+        # every touching point (g falls through zero) is a candidate, and the origin; on a
+        # straight stretch g is zero to rounding, so keep the steepest of the candidates
+        best = self._pos(0.0)[1]
+        for a, b, ga, gb in zip(grid, grid[1:], vals, vals[1:]):
+            if ga > 0.0 >= gb:
+                i_t = brentq(g, a, b, xtol=1e-14)
+                best = max(best, self._pos(i_t)[1])
+        return best
+
     def _pos(self, i: float):
         if i >= self.i[-1]:
             s = (self.e[-1] - self.e[-2]) / (self.i[-1] - self.i[-2])

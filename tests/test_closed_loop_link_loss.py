@@ -121,10 +121,13 @@ def test_hold_keeps_the_last_command(kernel):
     assert loop.u[L.U_CONTACTOR] == 1.0
 
 
-def test_valid_commands_again_clear_the_loss(kernel):
-    """A controller restarted on the same cable end after a loss (new handshake): the first
-    valid command clears the loss, the host logs it and link_ok returns to 1."""
+def test_loss_stays_latched_until_a_control_reset(kernel):
+    """A controller restarted on the same cable end after a loss (new handshake): its valid
+    commands do NOT clear the loss (docs/protocol.md section 8: the reaction latches); pulses
+    stay blocked and link_ok 0 until the controller sends CONTROL reset (op 1), after which its
+    commands are applied again and acknowledged."""
     from host.controller.process import run_controller
+    from host.link import Codec
     import threading
 
     motor = MOTORS["pinch_roll"]
@@ -149,9 +152,21 @@ def test_valid_commands_again_clear_the_loss(kernel):
         th = threading.Thread(target=again, daemon=True)
         th.start()
         cl.session.handshake(timeout_s=10.0)
+        commands_before = loop.stats.commands
+        loop.run_lockstep(10, command_timeout_s=COMMAND_TIMEOUT_S)
+        latched = loop.rows()[-10:]
+        assert loop.stats.commands == commands_before + 10, "the new controller's commands arrived"
+        assert np.all(latched[:, R["link_ok"]] == 0.0), "valid commands must not clear the latched reaction"
+        assert np.all(latched[:, R["bridge_select"]] == sig.BRIDGE_BLOCKED)
+        assert loop.fb.ack_seq == sig.ACK_NONE, "commands received while latched are not applied"
+        # the controller resets the reaction; it waits for feedback now, so its end is quiet
+        cl.ctrl_link.send_frame(Codec(0).pack_control(sig.ControlMessage(sig.CTRL_RESET), 0xFFFF))
         loop.run_lockstep(10, command_timeout_s=COMMAND_TIMEOUT_S)
         cl.session.send_control(sig.CTRL_BYE)
         th.join(timeout=10.0)
         assert not th.is_alive() and "e" not in res, res
-    assert any(e[1] == "link" and e[2] == "valid commands again" for e in loop.events)
+    assert any(e[1] == "link" and "stays latched until a reset" in e[2] for e in loop.events)
+    assert any(e[1] == "link" and "reset by the controller" in e[2] for e in loop.events)
+    assert loop.stats.watchdog_resets == 1
     assert loop.rows()[-1, R["link_ok"]] == 1.0
+    assert loop.fb.ack_seq == int(loop.rows()[-1, R["cmd_seq"]])

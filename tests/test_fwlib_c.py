@@ -103,7 +103,9 @@ def test_c_deframer_agrees_with_python_deframer(bins):
     d = Deframer()
     py_frames = d.feed(bytes(stream))
     assert [x[len("frame ") :] for x in out[:-1]] == [hx(f) for f in py_frames]
-    want = " ".join(f"{k}={v}" for k, v in d.stats().items())
+    # "torn" counts partial frames dropped when a host transport resets (a TCP peer gone); a
+    # firmware deframer on a UART has no such event, so the C library has no such counter
+    want = " ".join(f"{k}={v}" for k, v in d.stats().items() if k != "torn")
     assert out[-1] == f"stats {want}"
     assert d.crc_errors + d.cobs_errors >= 3 and d.oversize == 1
 

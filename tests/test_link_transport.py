@@ -166,7 +166,8 @@ def test_loop_url_round_trip_and_resync():
         ("accept://127.0.0.1:99999", {}, "address"),
         ("", {}, "url: must be a port path or a URL"),
         ("pty://x", {}, "pty:// takes no path"),
-        ("socket://127.0.0.1:notaport", {}, "cannot open"),
+        ("socket://127.0.0.1:notaport", {}, "address"),  # checked before pyserial, like socket:// with no port
+            ("socket://", {}, "must name a port"),
     ],
 )
 def test_open_link_errors_are_one_line_link_errors(url, kw, msg):

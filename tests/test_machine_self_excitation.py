@@ -98,10 +98,11 @@ def test_builds_up_to_intersection_of_field_line_and_curve(kernel, tmp_path):
 
 @pytest.mark.parametrize("factor,builds", [(0.8, True), (1.25, False)])
 def test_critical_field_resistance(kernel, tmp_path, factor, builds):
-    """R_crit = slope of the straight part of the curve at this speed (the air-gap line)."""
+    """R_crit = slope of the tangent from the origin to the curve (residual off) at this speed:
+    the textbook tangent construction, done here with scipy's brentq (reference_models)."""
     w = 1500 * RPM
     _, m0 = _gen(tmp_path)
-    r_crit = m0.curve.slope_max * w / m0.curve.w_c
+    r_crit = m0.curve.tangent_from_origin_slope() * w / m0.curve.w_c
     rheo = factor * r_crit - m0.rsh
     plant, m = _gen(tmp_path, rheostat_ohm=rheo)
     assert abs(plant.derived["critical_field_ohm_at_rated_speed"] * (1500 / 1450) - r_crit) < 1e-9 * r_crit
@@ -195,3 +196,32 @@ def test_field_reversed_key_fails_to_build_up_like_backwards_rotation(kernel, tm
 
     op = opoint.solve_generator(plant_rev, 1500.0)
     assert not op.found or abs(op.state.vt) < e_res
+
+
+def test_check_and_op_report_one_critical_resistance(tmp_path):
+    """`dcrig check` (params.derive) and `dcrig op` (opoint) give the same critical field
+    resistance, and it is the textbook tangent from the origin, here on a curve whose foot
+    bends upwards first (an S-shaped start, invented numbers), where the tangent touches the
+    curve above the foot and differs from both the steepest segment and the steepest point."""
+    from host.config import resolve
+    from host.opoint import circuit, solve_generator
+    from host.params import pack
+
+    i_tab = [0.0, 0.2, 0.4, 0.6, 0.8, 1.0, 1.2, 1.5, 2.0, 2.5, 3.0]
+    e_tab = [4.0, 20.0, 50.0, 95.0, 140.0, 180.0, 210.0, 240.0, 270.0, 285.0, 295.0]
+    table = {
+        "machine": {"name": "s-curve exciter", "connection": "shunt", "duty": "generator", "rated_power_kW": 10.0,
+                    "rated_voltage_V": 230.0, "rated_current_A": 45.0, "rated_speed_rpm": 1500.0,
+                    "rated_field_current_A": 1.5, "ra_ohm": 0.2, "la_H": 0.005, "field_resistance_ohm": 100.0,
+                    "field_inductance_H": 50.0,
+                    "magnetization": {"speed_rpm": 1500.0, "field_current_A": i_tab, "emf_V": e_tab}},
+        "mechanics": {"inertia_kgm2": 0.3, "load": "prime_mover"},
+    }
+    plant = pack(resolve("machine", table, "s-curve"))
+    ref = R.MagCurve(i_tab, e_tab, 1500 * RPM).tangent_from_origin_slope()
+    steepest_segment = max((b - a) / (y - x) for x, y, a, b in zip(i_tab, i_tab[1:], e_tab, e_tab[1:]))
+    assert abs(ref - steepest_segment) > 0.02 * ref  # the definitions really differ on this curve
+    assert plant.derived["critical_field_ohm_at_rated_speed"] == pytest.approx(ref, rel=1e-6)
+    op = solve_generator(plant, 1500.0).report()
+    assert op["self_excitation"]["critical_field_ohm"] == pytest.approx(ref, rel=1e-6)
+    assert circuit(plant) is not None

@@ -233,7 +233,8 @@ def fresh_start(cache_dir: str | None) -> dict:
 # ------------------------------------------------------------------------------------ C anchor
 def c_params(plant, x, u, n_frames: int, n_sub: int, repeats: int) -> str:
     p = plant.p
-    if int(p[L.P_AR_N]) != 0 or int(p[L.P_LOAD_KIND]) != L.LOAD_CONSTANT or u[L.U_LOAD_OHM] != 0.0:
+    if (int(p[L.P_AR_N]) != 0 or int(p[L.P_LOAD_KIND]) != L.LOAD_CONSTANT or u[L.U_LOAD_OHM] != 0.0
+            or p[L.P_MAG_LINEAR] > 0.5):
         raise ValueError("the C anchor covers a machine without armature reaction, constant load, no load resistor")
     n = int(p[L.P_MAG_N])
     t_ref = p[L.P_TEMP_REF_C]
@@ -273,7 +274,8 @@ def bridge_c_params(plant, x, u, n_frames: int, n_sub: int, repeats: int) -> str
                     L.U_PULSES_BLOCKED, L.U_FIELD_OPEN, L.U_ARMATURE_SHORT, L.U_LOCKED_ROTOR, L.U_COUPLING_BROKEN)
     if (int(p[L.P_SUPPLY_KIND]) != L.SUPPLY_BRIDGE or int(p[L.P_CONNECTION]) != L.CONN_SEPARATE
             or int(p[L.P_FIELD_SUPPLY_KIND]) != L.FIELD_SUPPLY_AVERAGED or int(p[L.P_LOAD_KIND]) != L.LOAD_CONSTANT
-            or int(p[L.P_AR_N]) != 0 or any(u[k] != 0.0 for k in fault_inputs) or u[L.U_CONTACTOR] < 0.5
+            or int(p[L.P_AR_N]) != 0 or p[L.P_MAG_LINEAR] > 0.5
+            or any(u[k] != 0.0 for k in fault_inputs) or u[L.U_CONTACTOR] < 0.5
             or int(u[L.U_BRIDGE_SELECT]) != 1 or u[L.U_MAINS_PU] != 1.0):
         raise ValueError("the bridge reference covers a separately excited machine on one switched bridge, averaged "
                          "field bridge, constant load, no armature reaction, no fault input, contactor closed")

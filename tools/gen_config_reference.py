@@ -32,7 +32,7 @@ TYPE_WORDS = {
 
 # rules whose check lives in host.config as a whole-table rule; the words here must say the same
 CURVE_RULES = {
-    "curve_x": "starts at 0, strictly increasing, 4 to 32 points",
+    "curve_x": "starts at 0, strictly increasing, 2 to 32 points",
     "curve_y": "first value (residual EMF) >= 0, strictly increasing, as many points as field_current_A",
     "reaction_x": "each > 0, strictly increasing, at most 8 points",
     "reaction_y": "each >= 0, as many points as armature_current_A",

@@ -32,3 +32,25 @@ def load_plant(args):
 
         raise ConfigError(f"--set: {c_over[0]}: converter key given but no --converter")
     return pack(machine, converter)
+
+
+def check_load_pu(value: float) -> float:
+    """--load of serve and demo: a finite fraction of rated torque within [0, 2]."""
+    import math
+
+    from ..errors import ConfigError
+
+    if not (math.isfinite(value) and 0.0 <= value <= 2.0):
+        raise ConfigError(f"--load: must be within [0, 2] per unit of rated torque, got {value!r}")
+    return value
+
+
+def check_seconds(option: str, value: float, lo: float = 0.0, hi: float = 3600.0) -> float:
+    """A timeout option: finite, > lo and at most hi seconds."""
+    import math
+
+    from ..errors import ConfigError
+
+    if not (math.isfinite(value) and lo < value <= hi):
+        raise ConfigError(f"{option}: must be a number of seconds > {lo:g} and at most {hi:g}, got {value!r}")
+    return value

@@ -81,7 +81,7 @@ def _do_check(args):
     if "no_load_speed_rpm" in d:
         rows.append(("no-load speed at rated voltage", d["no_load_speed_rpm"], "r/min"))
     if "critical_field_ohm_at_rated_speed" in d:
-        rows.append(("critical field resistance at rated speed", d["critical_field_ohm_at_rated_speed"], "ohm"))
+        rows.append(("critical field resistance at rated speed (tangent from the origin)", d["critical_field_ohm_at_rated_speed"], "ohm"))
         rows.append(("field circuit resistance, hot", d["field_circuit_ohm"], "ohm"))
     rows.append(("fastest time constant", d["tau_min_s"] * 1e6, "us"))
     rows.append(("largest stable step (2 tau_min, Heun)", d["stable_step_us"], "us"))

@@ -32,6 +32,10 @@ def add_subparser(sub):
 def _do_controller(args):
     from ..controller.process import run_controller
     from ..controller.protection import trip_label
+    from . import check_seconds
+
+    check_seconds("--handshake-timeout", args.handshake_timeout)
+    check_seconds("--idle-timeout", args.idle_timeout)
 
     summary = run_controller(args.link, args.settings, encoding=args.encoding,
                              handshake_timeout_s=args.handshake_timeout, idle_timeout_s=args.idle_timeout)

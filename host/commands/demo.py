@@ -61,20 +61,22 @@ def _do_demo(args):
     from ..controller.settings import load_settings
     from ..link import VirtualCable
     from ..loop import warm_kernel
+    from ..outputs import check_output_dir
     from ..runner import default_timeline, run_closed_loop
-    from . import load_plant
+    from . import check_load_pu, load_plant
 
     from ..shipped import shipped_config
 
-    print(SAFETY + "\n")
+    # every argument and file is checked before the banner: a refusal is its one line alone
+    check_load_pu(args.load)
+    check_output_dir("--out", args.out)
     args.machine = args.machine or str(shipped_config(DEFAULT_MACHINE))
     args.converter = args.converter or str(shipped_config(DEFAULT_CONVERTER))
     args.settings = args.settings or str(shipped_config(DEFAULT_CONTROLLER))
     plant = load_plant(args)
     load_settings(args.settings)  # validate before spawning anything
-    if not 0 <= args.load <= 2:
-        raise ConfigError(f"--load: must be within [0, 2] per unit, got {args.load!r}")
     timeline = default_timeline(plant, args.load)
+    print(SAFETY + "\n")
     print("loading the model kernel (the first run on a machine compiles it: 30-60 s) ...", flush=True)
     took = warm_kernel(plant)
     if took > 2.0:
@@ -86,9 +88,12 @@ def _do_demo(args):
             [sys.executable, "-m", "host.cli", "controller", "--link", cable.slave_path,
              "--settings", args.settings, "--quiet", "--idle-timeout", "10", "--handshake-timeout", "30"],
             env=env,
+            # its own session: a Ctrl-C reaches the host only, which keeps what it recorded and
+            # says bye; the controller then ends on the bye (or on the closed cable)
+            start_new_session=True,
         )
         try:
-            loop = run_closed_loop(plant, cable.host_link(), encoding=args.encoding, paced=args.paced,
+            loop = run_closed_loop(plant, cable.host_link(hold_far_end=True), encoding=args.encoding, paced=args.paced,
                                    timeline=timeline, out_dir=args.out, plot=not args.no_plot)
         finally:
             try:

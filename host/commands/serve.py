@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import math
 
 from ..cli import SAFETY
 from . import add_config_args
@@ -33,25 +34,63 @@ def add_subparser(sub):
     p.add_argument("--on-link-loss", choices=("block", "hold"), default="block", help="what the host does on link loss")
     p.add_argument("--load", type=float, default=0.6, metavar="PU", help="load step as a fraction of rated torque")
     p.add_argument("--out", default="dcrig-serve", metavar="DIR")
+    p.add_argument("--connect-timeout", type=float, default=60.0, metavar="S",
+                   help="listening address or pty://: wait this long for the controller to connect "
+                   "(pty://: to send its HELLO); default 60 s")
+    p.add_argument("--handshake-timeout", type=float, default=20.0, metavar="S",
+                   help="wait this long for the controller's HELLO once connected; default 20 s")
+    p.add_argument("--peer-timeout", type=float, default=5.0, metavar="S",
+                   help="lockstep: end the run when no valid command came for this long (dead or "
+                   "disconnected controller); default 5 s")
+    p.add_argument("--max-error-rate", type=float, default=0.01, metavar="PER_FRAME",
+                   help="mark the run invalid when detected link errors exceed this many per frame "
+                   "(after 100 frames); default 0.01")
     p.set_defaults(func=_do_serve)
+
+WATCHDOG_MAX_PERIODS = 10000
 
 
 def _do_serve(args):
+    from ..errors import ConfigError, LinkTimeout
     from ..link import open_link
     from ..loop import warm_kernel
+    from ..outputs import check_output_dir
     from ..runner import default_timeline, run_closed_loop
-    from . import load_plant
+    from . import check_load_pu, check_seconds, load_plant
 
-    print(SAFETY + "\n")
+    # arguments and files first: a refusal is one line, before the banner and before any port
+    if not 1 <= args.watchdog <= WATCHDOG_MAX_PERIODS:
+        raise ConfigError(f"--watchdog: must be a whole number of frames from 1 to {WATCHDOG_MAX_PERIODS}, "
+                          f"got {args.watchdog!r}")
+    check_load_pu(args.load)
+    check_seconds("--connect-timeout", args.connect_timeout)
+    check_seconds("--handshake-timeout", args.handshake_timeout)
+    check_seconds("--peer-timeout", args.peer_timeout)
+    if not (math.isfinite(args.max_error_rate) and 0.0 <= args.max_error_rate <= 1.0):
+        raise ConfigError(f"--max-error-rate: must be within [0, 1] errors per frame, got {args.max_error_rate!r}")
+    check_output_dir("--out", args.out)
     plant = load_plant(args)
     timeline = default_timeline(plant, args.load)
-    warm_kernel(plant)  # compile before the controller's handshake and before any deadline
+    # the link before the kernel: a missing port is said at once, not after a minute's compile
     with open_link(args.link, baud=args.baud, parity=args.parity) as link:
+        print(SAFETY + "\n")
         if getattr(link, "latency_timer_ms", None) is not None:
             print(f"USB-serial latency timer: {link.latency_timer_ms} ms")
+        handshake_s = args.handshake_timeout
+        peer_path = getattr(link, "peer_path", None)
+        if peer_path:
+            print(f"virtual cable: point the controller at {peer_path}  (e.g. dcrig controller --link "
+                  f"{peer_path} --settings SETTINGS.toml); waiting up to {args.connect_timeout:g} s for its HELLO",
+                  flush=True)
+            handshake_s = args.connect_timeout
+        warm_kernel(plant)  # compile before the controller's handshake and before any deadline
         if hasattr(link, "wait_connected"):
-            print(f"waiting for the controller on {link.url} ...")
-            link.wait_connected(60.0)
+            print(f"waiting up to {args.connect_timeout:g} s for the controller to connect on {link.url} ...",
+                  flush=True)
+            if not link.wait_connected(args.connect_timeout):
+                raise LinkTimeout(f"link '{link.url}': no controller connected within {args.connect_timeout:g} s")
         run_closed_loop(plant, link, encoding=args.encoding, paced=not args.lockstep, timeline=timeline,
-                        out_dir=args.out, watchdog_periods=args.watchdog, on_link_loss=args.on_link_loss)
+                        out_dir=args.out, watchdog_periods=args.watchdog, on_link_loss=args.on_link_loss,
+                        handshake_timeout_s=handshake_s, peer_timeout_s=args.peer_timeout,
+                        max_error_rate=args.max_error_rate)
     return 0

@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import argparse
 import math
+import sys
 
 import numpy as np
 
@@ -27,7 +28,8 @@ inputs (NAME for --change/--ramp/--set-input): see `host/sim.py` INPUTS; units a
 
 def add_subparser(sub):
     p = sub.add_parser("sim", help="offline transient simulation to CSV (and PNG)",
-                       description="Run the compiled model offline from standstill with input changes and ramps; "
+                       description="Run the compiled model offline from standstill (or, with --from-steady, running "
+                       "in steady state) with input changes and ramps; "
                        "write a CSV with unit-suffixed columns and optionally a plot.",
                        epilog=EXAMPLE + "\n" + SAFETY, formatter_class=argparse.RawDescriptionHelpFormatter)
     add_config_args(p)
@@ -40,13 +42,17 @@ def add_subparser(sub):
     # the old spelling, hidden from --help for its last release; kept apart to name it in errors
     p.add_argument("--step", dest="old_step", action="append", default=[], help=argparse.SUPPRESS)
     p.add_argument("--ramp", action="append", default=[], metavar="NAME@T0:T1=V0:V1", help="ramp an input linearly")
+    p.add_argument("--from-steady", action="store_true",
+                   help="start running in steady state (field up, at the speed where the motor meets its load on the DC "
+                   "source) instead of from rest")
     p.add_argument("--out", required=True, metavar="FILE.csv", help="CSV output")
     p.add_argument("--plot", metavar="FILE.png", help="PNG plot")
     p.set_defaults(func=_do_sim)
 
 
 def _do_sim(args):
-    from ..sim import parse_change, parse_ramp, plot, run_offline, write_csv
+    from ..outputs import check_output_file
+    from ..sim import check_inputs, overspeed_limit_rpm, parse_change, parse_ramp, plot, run_offline, write_csv
     from . import load_plant
 
     if not (args.t_end > 0 and math.isfinite(args.t_end)):
@@ -55,23 +61,33 @@ def _do_sim(args):
         if not (args.dt > 0 and math.isfinite(args.dt)):
             raise ConfigError(f"--dt: must be > 0, got {args.dt!r}")
         args.overrides = list(args.overrides) + [f"sim.dt_us={args.dt * 1e6!r}"]
-    if not str(args.out).lower().endswith(".csv"):
-        raise ConfigError(f"--out: {args.out}: expected a file name ending in .csv")
-    if args.plot and not str(args.plot).lower().endswith(".png"):
-        raise ConfigError(f"--plot: {args.plot}: expected a file name ending in .png")
+    check_output_file("--out", args.out, ".csv")
+    if args.plot:
+        check_output_file("--plot", args.plot, ".png")
+    if args.sample is not None and not (math.isfinite(args.sample) and args.sample > 0):
+        raise ConfigError(f"--sample: must be a finite number of seconds > 0, got {args.sample!r}")
+    if args.sample is not None and args.sample > args.t_end:
+        raise ConfigError(f"--sample: must not exceed --t-end ({args.t_end:g} s), got {args.sample!r}")
     plant = load_plant(args)
     segs = []
+    where = {}
     for text in args.set_input:
         if "=" not in text:
             raise ConfigError(f"--set-input: '{text}': expected NAME=VALUE")
         name, val = text.split("=", 1)
         segs.append(parse_change(f"{name}@0={val}", "--set-input"))
+        where[name] = "--set-input"
     if args.old_step:
         import sys
 
         print("note: --step is renamed to --change; the old name goes in the next release", file=sys.stderr)
-    segs += [parse_change(s) for s in args.change] + [parse_change(s, "--step") for s in args.old_step]
-    segs += [parse_ramp(r) for r in args.ramp]
+    for text, option in [(s, "--change") for s in args.change] + [(s, "--step") for s in args.old_step]:
+        segs.append(parse_change(text, option))
+        where.setdefault(segs[-1].name, option)
+    for text in args.ramp:
+        segs.append(parse_ramp(text))
+        where.setdefault(segs[-1].name, "--ramp")
+    check_inputs(plant, segs, where)
     sample = args.sample
     if sample is None:
         sample = plant.dt_s if plant.converter is not None else max(plant.dt_s, 1e-3)
@@ -80,7 +96,12 @@ def _do_sim(args):
     n = args.t_end / sample
     if n > 5e6:
         raise ConfigError(f"--sample: {n:.0f} rows is too many; use a larger --sample")
-    t, Y = run_offline(plant, args.t_end, sample, segs)
+    x0 = None
+    if args.from_steady:
+        from ..sim import steady_start_state
+
+        x0 = steady_start_state(plant)
+    t, Y = run_offline(plant, args.t_end, sample, segs, x=x0)
     write_csv(args.out, Y)
     if args.plot:
         plot(args.plot, Y, plant.machine["machine.name"])
@@ -94,8 +115,20 @@ def _do_sim(args):
           f"field {last[L.Y_IF_A]:.2f} A, EMF {last[L.Y_EMF_V]:.1f} V, terminal {last[L.Y_VT_MEAN_V]:.1f} V")
     print(f"  peaks: |ia| {np.max(np.abs(Y[:, L.Y_IA_PEAK_A])):.0f} A, speed {np.max(np.abs(Y[:, L.Y_SPEED_RPM])):.0f} r/min")
     flags = [name for bit, name in L.ST_NAMES.items() if status & bit]
+    n_limit = overspeed_limit_rpm(plant)
+    over = np.nonzero(np.abs(Y[:, L.Y_SPEED_RPM]) > n_limit)[0]
+    if len(over):
+        flags.append("overspeed")
     print(f"  model flags seen: {', '.join(flags) if flags else 'none'}")
+    if len(over):
+        peak = float(np.max(np.abs(Y[:, L.Y_SPEED_RPM])))
+        print(f"warning: overspeed: {peak:.0f} r/min from t = {Y[over[0], L.Y_TIME_S]:.3f} s, above the "
+              f"machine's limit {n_limit:.0f} r/min (machine.max_speed_rpm, default 1.2 x rated); on a real machine "
+              "its overspeed protection must trip long before this.", file=sys.stderr, flush=True)
     if status & L.ST_NONFINITE:
-        print("error: the model state became non-finite; reduce the step", flush=True)
+        bad = int(np.argmax(Y[:, L.Y_STATUS].astype(int) & L.ST_NONFINITE != 0))
+        print(f"error: the model state became non-finite at t = {Y[bad, L.Y_TIME_S]:.6g} s; the rows up "
+              f"to it are in {args.out}. Check the inputs and faults given, or reduce the step "
+              f"(sim.dt_us {plant.dt_s * 1e6:g} us)", file=sys.stderr, flush=True)
         return 2
     return 0

@@ -206,7 +206,8 @@ def _print_table(rep):
         print(f"  duty: {rep.get('duty', '-')}, sign convention: {rep['convention']} (see dcrig steady --help)")
     se = rep.get("self_excitation")
     if se and se.get("critical_field_ohm") is not None and se.get("field_circuit_ohm") is not None:
-        print(f"  field circuit {se['field_circuit_ohm']:.4g} ohm, critical {se['critical_field_ohm']:.4g} ohm at this speed")
+        print(f"  field circuit {se['field_circuit_ohm']:.4g} ohm, critical {se['critical_field_ohm']:.4g} ohm at this speed "
+              "(tangent from the origin)")
     for n in rep["notes"]:
         print(f"  note: {n}")
     for ctn in rep["cautions"]:

@@ -23,7 +23,7 @@ from host import signals as sig
 from host.controller.drive import DriveController
 from host.controller.protection import trip_label
 from host.controller.settings import load_settings
-from host.errors import DcrigError, LinkTimeout
+from host.errors import ConfigError, DcrigError, LinkTimeout
 
 
 class _OperatorOverrides:
@@ -60,6 +60,10 @@ def run_controller(link_url_or_path, settings_path, *, encoding=None, handshake_
     """
     from host.link import ControllerSession, open_link  # the link only when a process runs
 
+    for name, val in (("handshake_timeout_s", handshake_timeout_s), ("idle_timeout_s", idle_timeout_s)):
+        # nan never expires and inf overflows the wait: both would hang the bench silently
+        if isinstance(val, bool) or not isinstance(val, (int, float)) or not (0.0 < val <= 3600.0):
+            raise ConfigError(f"controller: {name}: must be a number of seconds > 0 and at most 3600, got {val!r}")
     settings = load_settings(settings_path)
     ctrl = DriveController(settings)
     if isinstance(link_url_or_path, (str, bytes)) or hasattr(link_url_or_path, "__fspath__"):

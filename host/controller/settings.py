@@ -281,12 +281,22 @@ def _coerce(source: str, key: Key, value: Any) -> Any:
     if key.kind == "float":
         if isinstance(value, bool) or not isinstance(value, (int, float)):
             raise ConfigError(f"{where}: must be a number, got {value!r}")
-        value = float(value)
+        try:
+            value = float(value)
+        except OverflowError:
+            raise ConfigError(f"{where}: must be a finite number (too large for a float), "
+                              f"got a {len(str(abs(value)))}-digit integer") from None
         if not math.isfinite(value):
             raise ConfigError(f"{where}: must be finite")
+        if abs(value) > 1e9 or 0.0 < abs(value) < 1e-9:
+            raise ConfigError(f"{where}: magnitude must be 0 or from 1e-09 to 1e+09 (a plausible value "
+                              f"in this key's unit), got {value!r}")
     elif key.kind == "int":
         if isinstance(value, bool) or not isinstance(value, int):
             raise ConfigError(f"{where}: must be an integer, got {value!r}")
+        if abs(value) > 2**31 - 1:
+            raise ConfigError(f"{where}: must be an integer within +-2147483647, got a "
+                              f"{len(str(abs(value)))}-digit integer")
     elif key.kind == "bool":
         if not isinstance(value, bool):
             raise ConfigError(f"{where}: must be true or false, got {value!r}")
@@ -302,7 +312,10 @@ def _coerce(source: str, key: Key, value: Any) -> Any:
             isinstance(v, (int, float)) and not isinstance(v, bool) for v in value
         ):
             raise ConfigError(f"{where}: must be a list of numbers")
-        value = [float(v) for v in value]
+        try:
+            value = [float(v) for v in value]
+        except OverflowError:
+            raise ConfigError(f"{where}: must hold finite numbers (one is too large for a float)") from None
         if not all(math.isfinite(v) for v in value):
             raise ConfigError(f"{where}: must be finite")
     if key.check is not None and not key.check(value):
@@ -385,6 +398,11 @@ def load_settings(path: str | Path) -> Settings:
         raise ConfigError(f"{path}: (file): cannot read ({err.strerror})") from err
     except tomllib.TOMLDecodeError as err:
         raise ConfigError(f"{path}: (file): not valid TOML ({err})") from err
+    except UnicodeDecodeError as err:
+        raise ConfigError(f"{path}: (file): must be UTF-8 text (TOML), got byte 0x{err.object[err.start]:02x} "
+                          f"at offset {err.start}") from err
+    except RecursionError as err:
+        raise ConfigError(f"{path}: (file): arrays or tables nested too deeply to be a settings file") from err
     return from_dict(nested, str(path))
 
 

@@ -200,6 +200,8 @@ class Hello:
     max_payload: int = MAX_PAYLOAD
     protocol_version: int = PROTOCOL_VERSION
     signals: tuple | None = None  # None: this side's own table for the encoding
+    # host HELLO only: (tachogenerator uV per rpm, encoder counts per revolution), 0 = not given
+    sensors: tuple[int, int] = (0, 0)
 
     def __post_init__(self):
         if self.signals is None:
@@ -208,6 +210,7 @@ class Hello:
 
 _HELLO_HEAD = struct.Struct("<BHBBBBIHH")
 _ENTRY_HEAD = struct.Struct("<BBbBB")
+_SENSOR_BLOCK = struct.Struct("<II")  # after the table, host HELLO only (docs/protocol.md 6.5)
 
 
 def pack_hello(hello: Hello, seq: int = 0) -> bytes:
@@ -229,6 +232,9 @@ def pack_hello(hello: Hello, seq: int = 0) -> bytes:
         unit = s.unit.encode("ascii")
         parts.append(_ENTRY_HEAD.pack(s.kind, s.type, s.exp10, s.offset, s.bit))
         parts.append(bytes((len(name),)) + name + bytes((len(unit),)) + unit)
+    if hello.role == ROLE_HOST:
+        tacho, counts = (min(max(int(v), 0), 0xFFFFFFFF) for v in hello.sensors)
+        parts.append(_SENSOR_BLOCK.pack(tacho, counts))
     return b"".join(parts)
 
 
@@ -253,9 +259,16 @@ def unpack_hello(frame: bytes) -> Hello:
             specs.append(SignalSpec(kind, name, t, exp10, offset, bit, unit))
     except (IndexError, struct.error, UnicodeDecodeError) as err:
         raise FrameError(f"hello frame signal table is truncated or not ASCII ({err})") from err
+    sensors = (0, 0)
+    if role == ROLE_HOST:
+        if len(frame) - pos != _SENSOR_BLOCK.size:
+            raise FrameError(f"host hello frame has {len(frame) - pos} bytes after its signal table, "
+                             f"its sensor block is {_SENSOR_BLOCK.size}")
+        sensors = _SENSOR_BLOCK.unpack_from(frame, pos)
+        pos += _SENSOR_BLOCK.size
     if pos != len(frame):
         raise FrameError(f"hello frame has {len(frame) - pos} bytes after its signal table")
-    h = Hello(role, encoding, period_us, max_payload, version, tuple(specs))
+    h = Hello(role, encoding, period_us, max_payload, version, tuple(specs), tuple(sensors))
     return h
 
 
@@ -414,6 +427,8 @@ class Codec:
 
     def unpack(self, frame: bytes):
         """Decode any frame kind; raises FrameError for anything this version cannot read."""
+        if len(frame) < 3:  # found by the fuzz target: an empty frame raised IndexError
+            raise FrameError(f"frame of {len(frame)} bytes is shorter than its 3-byte header")
         kind = frame[0] & 0x07
         if kind == KIND_COMMAND:
             return self.unpack_command(frame)

@@ -247,13 +247,21 @@ class HostSession(_Session):
         if not isinstance(frame_period_us, int) or not 1 <= frame_period_us <= 0xFFFFFFFF:
             raise LinkError(f"link frame_period_us {frame_period_us!r}: must be a positive whole number of us")
         super().__init__(link, _encoding_code(encoding), frame_period_us)
-        self.invalid_commands = 0
+        self.invalid_commands = 0  # every refused command, whatever its class
+        self.refused: dict[str, int] = {}  # per class: malformed, mode_not_applicable, ...
+        self.last_refusal = ""  # class and reason of the last refused command
+        # command_check(cmd) -> (class, reason) | None: the plant's own rules (modes, bridge
+        # selections and value ranges that apply to it); set by the host loop
+        self.command_check = None
         self.last_command_seq: int | None = None
+        self.handshakes = 0
+        self.sensors = (0, 0)  # (tacho uV per rpm, encoder counts per rev) for the HELLO
+        self.peer_restarted = False  # a controller HELLO after its commands: it started over
         self.watchdog = Watchdog(frame_period_us, watchdog_periods, clock) if watchdog_periods else None
 
     def handshake(self, timeout_s: float = 5.0, retry_s: float = 0.25) -> fr.Hello:
         """Send HELLO every retry_s until the controller's HELLO arrives; check it agrees."""
-        ours = fr.Hello(fr.ROLE_HOST, self.encoding, self.frame_period_us)
+        ours = fr.Hello(fr.ROLE_HOST, self.encoding, self.frame_period_us, sensors=self.sensors)
         frame = fr.pack_hello(ours, (self.tx_seq - 1) & 0xFFFF)
         link = self.link
         link.send_delimiter()
@@ -290,6 +298,11 @@ class HostSession(_Session):
             self.peer_hello = peer
             self.rx.reset()
             self.bye = False
+            # the session starts over: both numberings restart at 0, nothing is applied yet
+            self.tx_seq = 0
+            self.last_command_seq = None
+            self.peer_restarted = False
+            self.handshakes += 1
             if self.watchdog:
                 self.watchdog.reset()
             return peer
@@ -315,23 +328,39 @@ class HostSession(_Session):
             return None
         problem = fr.command_problem(cmd)
         if problem:
-            self.invalid_commands += 1
-            self._problem(f"command {cmd.seq}: {problem}")
+            self._refuse(cmd, "malformed", problem)
             return None
+        if self.command_check is not None:
+            refusal = self.command_check(cmd)
+            if refusal is not None:
+                self._refuse(cmd, *refusal)
+                return None
         self.last_command_seq = cmd.seq
         if self.watchdog:
             self.watchdog.kick()
         return cmd
+
+    def _refuse(self, cmd: sig.Command, cls: str, reason: str) -> None:
+        self.invalid_commands += 1
+        self.refused[cls] = self.refused.get(cls, 0) + 1
+        self.last_refusal = f"{cls}: {reason}"
+        self._problem(f"command {cmd.seq}: {cls}: {reason}")
 
     def _other(self, frame: bytes) -> None:
         kind = fr.frame_kind(frame)
         if kind == fr.KIND_HELLO:
             self.hellos_after_handshake += 1  # a late duplicate reply, or a restarted controller
             try:
-                self.events.append(fr.unpack_hello(frame))
+                hello = fr.unpack_hello(frame)
             except fr.FrameError as err:
                 self.bad_frames += 1
                 self._problem(str(err))
+                return
+            self.events.append(hello)
+            if hello.role == fr.ROLE_CONTROLLER and self.last_command_seq is not None:
+                # a late duplicate answer comes before the first command; after commands a
+                # controller HELLO means it reset and starts over: the host must handshake again
+                self.peer_restarted = True
             self.rx.reset()
         elif kind in (fr.KIND_TRIP, fr.KIND_CONTROL):
             self._event_frame(frame)
@@ -344,6 +373,8 @@ class HostSession(_Session):
     def stats(self) -> dict[str, int]:
         s = super().stats()
         s["invalid_commands"] = self.invalid_commands
+        s.update({f"refused_{k}": v for k, v in self.refused.items()})
+        s["handshakes"] = self.handshakes
         if self.watchdog:
             s["watchdog_trips"] = self.watchdog.trips
         return s

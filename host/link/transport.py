@@ -231,6 +231,17 @@ class FdLink(Link):
     def fileno(self) -> int:
         return self.fd
 
+    def release_peer_hold(self) -> None:
+        """Close the far-end handles held only to keep a pty alive until its peer opened it.
+        Called once the peer has answered: from then on the peer's exit (or a killed peer
+        process) closes the last far-end handle, and reads report it instead of waiting."""
+        for fd in self._keep:
+            try:
+                os.close(fd)
+            except OSError:
+                pass
+        self._keep = []
+
     def _read_raw(self, max_bytes: int, timeout_s: float) -> bytes:
         r, _, _ = select.select([self.fd], [], [], timeout_s)
         if not r:
@@ -279,9 +290,16 @@ class VirtualCable:
         self.slave_path = os.ttyname(self._slave)
         self._handed: set[str] = set()
 
-    def host_link(self) -> FdLink:
+    def host_link(self, hold_far_end: bool = False) -> FdLink:
+        """The master end. hold_far_end: the link takes over the cable's own slave handle (the
+        controller then runs in another process); link.release_peer_hold() drops it once the
+        controller has answered, so that its death is seen as the cable closing."""
         self._take("host")
-        return FdLink(self._master, f"pty://{self.slave_path}#host", peer_path=self.slave_path)
+        link = FdLink(self._master, f"pty://{self.slave_path}#host", peer_path=self.slave_path)
+        if hold_far_end:
+            self._take("controller")
+            link._keep.append(self._slave)
+        return link
 
     def controller_link(self) -> FdLink:
         self._take("controller")
@@ -482,14 +500,25 @@ def open_link(url: str, *, baud: int = DEFAULT_BAUD, parity: str = "N", write_ti
     if scheme and scheme not in PYSERIAL_SCHEMES:
         known = ", ".join(f"{s}://" for s in (*OUR_SCHEMES, *PYSERIAL_SCHEMES))
         raise LinkError(f"link '{url}': scheme {scheme!r}: unknown (known: {known}, or a port path)")
+    if scheme in ("socket", "rfc2217"):
+        # pyserial compares the port with a number and fails with a TypeError when there is none
+        _split_host_port(url, url.split("://", 1)[1].split("/", 1)[0].split("?", 1)[0], "")
+        host_part = urlsplit(url).hostname
+        if not host_part:
+            raise LinkError(f"link '{url}': address: must name a host and a port, e.g. {scheme}://127.0.0.1:5020")
     baud = _check_baud(url, baud)
     parity_code = _check_parity(url, parity)
     if not scheme and os.name == "posix" and not os.path.exists(url):
         raise LinkError(f"link '{url}': port: no such device")
+    extra = {}
+    if not scheme and os.name == "posix":
+        # exclusive open (an advisory lock on the port): a second host on the same port fails
+        # at once with one line instead of both reading half of the frames
+        extra["exclusive"] = True
     try:
         ser = serial.serial_for_url(
             url, baudrate=baud, parity=parity_code, bytesize=serial.EIGHTBITS,
-            stopbits=serial.STOPBITS_ONE, timeout=0, write_timeout=write_timeout_s,
+            stopbits=serial.STOPBITS_ONE, timeout=0, write_timeout=write_timeout_s, **extra,
         )  # fmt: skip
     except (serial.SerialException, ValueError, OSError) as err:
         raise LinkError(f"link '{url}': cannot open: {str(err).splitlines()[0] if str(err) else err!r}") from err

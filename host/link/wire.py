@@ -101,6 +101,7 @@ class Deframer:
         cobs_errors    not a valid COBS sequence
         oversize       more than the encoded maximum without a delimiter
         runts          decoded shorter than header + CRC
+        torn           a partial frame dropped when the line was reset (peer disconnected)
         garbage_bytes  bytes thrown away for any of the reasons above
     """
 
@@ -114,6 +115,7 @@ class Deframer:
         "cobs_errors",
         "oversize",
         "runts",
+        "torn",
         "garbage_bytes",
     )
 
@@ -128,10 +130,14 @@ class Deframer:
         self.cobs_errors = 0
         self.oversize = 0
         self.runts = 0
+        self.torn = 0
         self.garbage_bytes = 0
 
     def reset(self) -> None:
-        """Forget a partial frame (counters stay)."""
+        """Forget a partial frame (counters stay; a partial frame forgotten counts as torn)."""
+        if self._buf:
+            self.torn += 1
+            self.garbage_bytes += len(self._buf)
         self._buf = b""
         self._discarding = False
 
@@ -142,6 +148,7 @@ class Deframer:
             "cobs_errors": self.cobs_errors,
             "oversize": self.oversize,
             "runts": self.runts,
+            "torn": self.torn,
             "garbage_bytes": self.garbage_bytes,
         }
 

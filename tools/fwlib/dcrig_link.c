@@ -296,6 +296,10 @@ size_t dcrig_pack_hello(uint8_t role, uint8_t encoding, uint32_t frame_period_us
         w_u8(&w, (uint8_t)lu);
         w_bytes(&w, (const uint8_t *)ROWS[i].unit, lu);
     }
+    if (role == DCRIG_ROLE_HOST) { /* the sensor block: a controller never sends one; 0 = not given */
+        w_u32(&w, 0u);
+        w_u32(&w, 0u);
+    }
     return w_finish(&w);
 }
 
@@ -312,6 +316,8 @@ int dcrig_check_hello(const uint8_t *frame, size_t n, uint8_t expect_role, uint8
     h->n_signals = frame[6];
     h->frame_period_us = r_u32(frame + 7);
     h->max_payload = r_u16(frame + 11);
+    h->tacho_uV_per_rpm = 0u;
+    h->encoder_counts_per_rev = 0u;
     if ((frame[0] >> 4) != DCRIG_PROTOCOL_VERSION || h->protocol_version != DCRIG_PROTOCOL_VERSION)
         return DCRIG_E_VERSION;
     if (h->role != expect_role) return DCRIG_E_ROLE;
@@ -337,6 +343,12 @@ int dcrig_check_hello(const uint8_t *frame, size_t n, uint8_t expect_role, uint8
         pos += 1u;
         if (pos + lu > n || memcmp(frame + pos, ROWS[i].unit, lu) != 0) return DCRIG_E_SIGNALS;
         pos += lu;
+    }
+    if (h->role == DCRIG_ROLE_HOST) {
+        if (pos + 8u != n) return DCRIG_E_SIGNALS;
+        h->tacho_uV_per_rpm = r_u32(frame + pos);
+        h->encoder_counts_per_rev = r_u32(frame + pos + 4u);
+        pos += 8u;
     }
     return pos == n ? DCRIG_OK : DCRIG_E_SIGNALS;
 }

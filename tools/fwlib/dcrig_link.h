@@ -131,7 +131,7 @@ typedef struct {
 /* FEEDBACK, host -> controller (fixed point) */
 typedef struct {
     uint16_t seq;
-    uint16_t ack_seq;          /* seq of the last valid command the host applied */
+    uint16_t ack_seq;          /* seq of the last valid command the host applied; 0xFFFF: none yet */
     uint32_t model_time_us;    /* wraps at 2^32 */
     int32_t armature_current_cA;
     int32_t field_current_mA;
@@ -165,6 +165,9 @@ typedef struct {
     uint8_t protocol_version, role, encoding, n_signals;
     uint32_t frame_period_us;
     uint16_t max_payload;
+    /* host HELLO only (its sensor block, docs/protocol.md 6.5); 0 = not given */
+    uint32_t tacho_uV_per_rpm;
+    uint32_t encoder_counts_per_rev;
 } dcrig_hello_t;
 
 /* ---- CRC and COBS ----------------------------------------------------------------------- */
