@@ -2,7 +2,8 @@
 
 Owns: mapping Command -> model inputs and model outputs -> Feedback (the plant's sensors),
 the lockstep and paced real-time loops, the watchdog reaction, the frame record and the
-timing statistics. The link is a host.link.HostSession; the model is rtmodel.kernel.step_frame.
+timing statistics. The link is a host.link.HostSession; the model is the plant's frame kernel (Plant.kernel(),
+a build of rtmodel.kernel.step_frame specialised for the plant's codes), fetched once per run.
 
 Per frame the Python work is constant: decode one command, write a few input slots, one
 numba call for n_sub steps, copy one output row into a preallocated record, encode one
@@ -83,8 +84,7 @@ def warm_kernel(plant: Plant) -> float:
     import time as _time
 
     t0 = _time.perf_counter()
-    from rtmodel.kernel import step_frame
-
+    step_frame = plant.kernel()
     x, u, y = plant.new_state(), plant.new_inputs(), np.zeros(L.N_OUTPUT)
     step_frame(x, plant.p, u, y, 0)
     return _time.perf_counter() - t0
@@ -146,9 +146,7 @@ class HostLoop:
                  max_error_rate: float = 0.01, error_rate_min_frames: int = 100, recorder=None):
         if on_link_loss not in ("block", "hold"):
             raise ConfigError(f"link: on_link_loss: expected one of ['block', 'hold'], got {on_link_loss!r}")
-        from rtmodel.kernel import step_frame
-
-        self._step = step_frame
+        self._step = plant.kernel()  # the build for this plant's codes, fetched once per run
         self.plant = plant
         self.session = session
         self.frame_period_us = int(frame_period_us)

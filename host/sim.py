@@ -2,8 +2,9 @@
 
 Owns: the named model inputs a user may drive (with units), step/ramp profiles, and
 `run_offline`, which calls the step kernel once per recorded sample. The host/rtmodel
-boundary is rtmodel.layout (array layout) and rtmodel.kernel.step_frame (one call per sample
-or frame); nothing else of rtmodel is called here.
+boundary is rtmodel.layout (array layout) and the frame kernel from Plant.kernel() (a build of
+rtmodel.kernel.step_frame for the plant's codes; one call per sample or frame); nothing else
+of rtmodel is called here.
 """
 
 from __future__ import annotations
@@ -213,8 +214,7 @@ def run_offline(plant: Plant, t_end_s: float, sample_s: float, segments: list[Se
     """
     import time
 
-    from rtmodel.kernel import step_frame
-
+    step_frame = plant.kernel()
     dt = plant.dt_s
     n_sub = max(1, int(round(sample_s / dt)))
     n = int(math.ceil(t_end_s / (n_sub * dt) - 1e-9))
