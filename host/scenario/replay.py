@@ -173,3 +173,65 @@ def trace_actions(tmap, table: dict, t_tr: np.ndarray) -> tuple[list[Action], fl
     edges.sort(key=lambda a: a.at_s)
     out += _named(edges)
     return [a for a in out if a.at_s < duration], duration
+
+
+@dataclass
+class ClosedLoopResult:
+    source: Path
+    run_dir: Path
+    departures: list
+    frames: int
+    identical: bool  # every compared value equal to the bit, frame for frame
+    row: dict  # host.suite.run.run_one's row: verdict (harm checks), timings
+
+    @property
+    def departs(self) -> bool:
+        return any(d.first_outside_s is not None for d in self.departures)
+
+
+def closed_loop_replay(run, controller: str = "process", link_url: str | None = None, overrides=(),
+                       columns=None, tolerances: dict | None = None) -> ClosedLoopResult:
+    """`dcrig runs replay RUN --closed-loop`: the run's recorded operator/load timeline as the
+    timeline of a scenario with a live controller (the emulated one as a separate process,
+    as `dcrig demo` runs it, in-process, or a real one on link_url), from the run's own
+    configs (plus plant `overrides`); judged (harm checks) and compared with the record frame
+    by frame. The scenario file is kept in the replay's run folder (scenario.toml) as a
+    starting point for one with expectations."""
+    import json
+    import shutil
+    import tempfile
+
+    from host.errors import DcrigError
+    from host.record import open_record
+    from host.replay import DEFAULT_COMPARE, compare
+    from host.suite.run import run_one
+
+    with open_record(run) as rd:
+        src_path = rd.path
+    lines = ["# closed-loop replay of a recorded run (docs/scenarios.md, 'Closed-loop replay')",
+             "[scenario]", 'name = "closed-loop"', f"description = {json.dumps(f'closed-loop replay of {src_path.parent}')}",
+             "[replay]", f"source = {json.dumps(str(src_path))}",
+             "[controller]", f"kind = {json.dumps('link' if link_url else controller)}"]
+    if link_url:
+        lines.append(f"link = {json.dumps(link_url)}")
+    if overrides:
+        lines += ["[plant]", f"set = {json.dumps(list(overrides))}"]
+    with tempfile.TemporaryDirectory(prefix="dcrig-replay-") as tmp:
+        scn_file = Path(tmp) / "scenario.toml"
+        scn_file.write_text("\n".join(lines) + "\n", encoding="utf-8")
+        from .load import load_scenario
+
+        load_scenario(scn_file)  # bad input: one line before anything runs
+        row = run_one(str(scn_file), str(src_path.parent / "replays"), None, plots=False)
+        if row["outcome"] == "error":
+            raise DcrigError(f"{src_path}: closed-loop replay: {row['error']}")
+        run_dir = Path(row["run_dir"])
+        shutil.copyfile(scn_file, run_dir / "scenario.toml")
+    with open_record(src_path) as a, open_record(run_dir) as b:
+        recorded, replayed = a.frames(), b.frames()
+        cols = tuple(columns or DEFAULT_COMPARE)
+        deps = compare(a, recorded, replayed, cols, dict(tolerances or {}))
+        idx = [a.R[c] for c in cols]
+        n = min(len(recorded), len(replayed))
+        identical = len(recorded) == len(replayed) and bool(np.array_equal(recorded[:n, idx], replayed[:n, idx]))
+    return ClosedLoopResult(src_path, run_dir, deps, len(replayed), identical, row)
