@@ -69,10 +69,14 @@ class PlaybackSession:
     """Stands in for host.link.HostSession: hands the recorded commands to HostLoop one per
     frame, swallows the feedback, and says bye after the last one."""
 
+    url = "playback://recorded-commands"
+
     def __init__(self, commands: list[sig.Command]):
         self._commands = commands
         self._next = 0
         self.bye = False
+        self.link = self  # HostLoop asks session.link for its url and connection count
+        self.peer_restarted = False  # no controller to restart
         self.last_command_seq: int | None = None
 
     def send_feedback(self, fb) -> int:
