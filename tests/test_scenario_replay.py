@@ -127,12 +127,12 @@ def test_bad_comtrade_traces_give_one_line_and_exit_2(demo_run, tmp_path, capsys
     if damage == "missing_dat":
         dat.unlink()
     elif damage == "channel_count":
-        lines = cfg.read_text().split("\r\n")
+        lines = cfg.read_text().split("\n")  # universal newlines: CR/LF read as LF
         tt, na, nd = lines[1].split(",")
         lines[1] = f"{int(tt) + 1},{na},{nd}"
         cfg.write_text("\r\n".join(lines))
     elif damage == "unsorted":
-        lines = dat.read_text().split("\r\n")
+        lines = dat.read_text().split("\n")
         lines[10], lines[11] = lines[11], lines[10]
         dat.write_text("\r\n".join(lines))
     (tmp_path / "map.toml").write_text('[trace]\ntime = "time"\n[inputs]\nload_torque_Nm = "load_torque_Nm"\n')
@@ -154,7 +154,7 @@ def test_bad_comtrade_traces_give_one_line_and_exit_2(demo_run, tmp_path, capsys
 @pytest.mark.parametrize("bad, where", [
     ('[faults]\nno_such_fault = "x"\n', "faults.no_such_fault"),
     ('[faults]\nmains_dip = { column = "u_pu" }\n', "faults.mains_dip.remaining_pu"),
-    ('[operator]\njog = "run_cmd"\n', "operator.jog"),
+    ('jog = "run_cmd"\n', "operator.jog"),  # the shipped map ends with its [operator] table
 ])
 def test_bad_replay_maps_give_one_line(tmp_path, bad, where):
     mp = (ROOT / "configs" / "replay" / "f3_site_recorder_map.toml").read_text()
