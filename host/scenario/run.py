@@ -271,7 +271,10 @@ def run_scenario(scn: Scenario, out_dir=None, *, link_url: str | None = None, fw
         _start_state(loop, scn)
         loop.hooks.append(ScenarioDriver(scn, gate))
 
-        loop.run_lockstep(n_frames, on_frame=on_frame, command_timeout_s=5.0 if kind != "emulated" else None)
+        # a controller that died (or refused the handshake and left) ends the run after 15 s of
+        # silence instead of waiting 5 s per frame for ever
+        loop.run_lockstep(n_frames, on_frame=on_frame, command_timeout_s=5.0 if kind != "emulated" else None,
+                          peer_timeout_s=15.0 if kind != "emulated" else None)
     except (KeyboardInterrupt, DcrigError) as err:
         stopped = err
         status = f"stopped: {err.__class__.__name__}: {err}"
