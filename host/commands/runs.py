@@ -91,7 +91,7 @@ def add_subparser(sub):
                     "CSV or COMTRADE disturbance trace write a scenario with [replay] (docs/scenarios.md)")
     rp.add_argument("--controller", choices=("process", "emulated"), default="process",
                     help="--closed-loop: the emulated controller as a separate process over a virtual cable (as "
-                    "`dcrig demo` runs it: the same frames) or in-process (no link encoding, so not bit-identical)")
+                    "`dcrig demo` runs it: the same frames) or in-process (no fixed-point link encoding, so the frames differ)")
     rp.add_argument("--link", metavar="URL", help="--closed-loop against the controller on this port or URL "
                     "(it must drive no power stage)")
     rp.set_defaults(func=_do_replay)
