@@ -228,7 +228,7 @@ def load_scenario(path: str | Path) -> Scenario:
         raise r.fail("scenario.name", "letters, digits, '_' and '-' only", name)
     replay = None
     rp = _table(r, data, "replay")
-    if rp:  # closed-loop replay: the trace is (part of) the timeline; read and checked now
+    if "replay" in data:  # closed-loop replay: the trace is (part of) the timeline; read and checked now
         from .replay import load_replay
 
         r.known(rp, ("source", "map"), "replay.")
