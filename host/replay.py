@@ -10,8 +10,9 @@ changed parameter (`--set`) it reports, per compared column, the largest differe
 the response first leaves the tolerance (the departure) and for how long. The replay is a
 run: it writes its own record (run folder RUN/replays/open-loop, -2, ...).
 
-Closed-loop replay (recorded disturbances as the timeline of a run with a live controller)
-belongs to the scenario runner and is not here.
+Closed-loop replay (recorded disturbances as the timeline of a run with a live controller) is
+a scenario source: host.scenario.replay turns a trace read here, with the same channel map
+(its [inputs], [operator] and [faults] tables), into scenario timeline actions.
 """
 
 from __future__ import annotations
@@ -68,10 +69,14 @@ class PlaybackSession:
     """Stands in for host.link.HostSession: hands the recorded commands to HostLoop one per
     frame, swallows the feedback, and says bye after the last one."""
 
+    url = "playback://recorded-commands"
+
     def __init__(self, commands: list[sig.Command]):
         self._commands = commands
         self._next = 0
         self.bye = False
+        self.link = self  # HostLoop asks session.link for its url and connection count
+        self.peer_restarted = False  # no controller to restart
         self.last_command_seq: int | None = None
 
     def send_feedback(self, fb) -> int:
@@ -254,6 +259,8 @@ class TraceMap:
     commands: dict
     inputs: dict
     feedback: dict
+    operator: dict = None  # closed loop only: OPERATOR_CHANNELS -> Channel
+    faults: dict = None  # closed loop only: fault name -> (Channel, parameter)
 
 
 def _channel(src: str, key: str, v, names: dict | None = None) -> Channel:
@@ -280,9 +287,16 @@ def _channel(src: str, key: str, v, names: dict | None = None) -> Channel:
     raise ConfigError(f"{src}: {key}: expected a column name, a number or a table, got {v!r}")
 
 
-def load_trace_map(path) -> TraceMap:
+OPERATOR_CHANNELS = ("run", "speed_ref_rpm")  # closed loop: the operator panel's inputs
+
+
+def load_trace_map(path, closed_loop: bool = False) -> TraceMap:
     """The channel mapping file (TOML, docs/record.md#trace-map): which trace column is which
-    command, input and feedback, with scaling. Every problem is one ConfigError line."""
+    command, input and feedback, with scaling. Every problem is one ConfigError line.
+
+    closed_loop: the map of a closed-loop replay (a scenario's [replay]): the live controller
+    makes the commands, so [commands] and [feedback] are not needed (and not used); the
+    disturbances are [inputs], the operator's [operator] and staged [faults]."""
     import tomllib
 
     src = str(path)
@@ -292,9 +306,18 @@ def load_trace_map(path) -> TraceMap:
         raise ConfigError(f"{src}: cannot read file ({err.strerror})") from err
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as err:
         raise ConfigError(f"{src}: not valid TOML ({err})") from err
-    unknown = set(data) - {"trace", "commands", "inputs", "feedback"}
+    unknown = set(data) - {"trace", "commands", "inputs", "feedback", "operator", "faults"}
     if unknown:
-        raise ConfigError(f"{src}: {sorted(unknown)[0]}: unknown table (known: trace, commands, inputs, feedback)")
+        raise ConfigError(f"{src}: {sorted(unknown)[0]}: unknown table (known: trace, commands, inputs, feedback, "
+                          "operator, faults)")
+    for t in ("trace", "commands", "inputs", "feedback", "operator", "faults"):
+        if t in data and not isinstance(data[t], dict):
+            raise ConfigError(f"{src}: {t}: must be a table, got {data[t]!r}")
+    if not closed_loop:
+        for t in ("operator", "faults"):
+            if t in data:
+                raise ConfigError(f"{src}: {t}: only for a closed-loop replay (a scenario's [replay]); an open-loop "
+                                  "replay has no controller to see the operator or a staged fault")
     tr = data.get("trace", {})
     bad = set(tr) - {"time", "start_s", "command_at"}
     if bad:
@@ -316,7 +339,7 @@ def load_trace_map(path) -> TraceMap:
             raise ConfigError(f"{src}: commands.{k}: unknown command field (known: {', '.join(TRACE_COMMANDS)})")
         names = MODE_NAMES if k == "mode" else FIELD_MODE_NAMES if k == "field_mode" else None
         cmds[k] = _channel(src, f"commands.{k}", v, names)
-    if "armature_cmd" not in cmds:
+    if "armature_cmd" not in cmds and not closed_loop:
         raise ConfigError(f"{src}: commands.armature_cmd: required key is missing (the firing angle, voltage or current command)")
     from .sim import INPUTS
 
@@ -334,9 +357,68 @@ def load_trace_map(path) -> TraceMap:
         fb[k] = _channel(src, f"feedback.{k}", v)
         if fb[k].constant is not None:
             raise ConfigError(f"{src}: feedback.{k}: must name a trace column")
-    if not fb:
+    if not fb and not closed_loop:
         raise ConfigError(f"{src}: feedback: at least one recorded feedback column is needed to compare with")
-    return TraceMap(src, time_ch, None if start is None else float(start), command_at, cmds, inputs, fb)
+    operator = {}
+    for k, v in data.get("operator", {}).items():
+        if k not in OPERATOR_CHANNELS:
+            raise ConfigError(f"{src}: operator.{k}: unknown operator input (known: {', '.join(OPERATOR_CHANNELS)})")
+        operator[k] = _channel(src, f"operator.{k}", v)
+    faults = {}
+    for k, v in data.get("faults", {}).items():
+        faults[k] = _fault_channel(src, k, v)
+    tm = TraceMap(src, time_ch, None if start is None else float(start), command_at, cmds, inputs, fb)
+    tm.operator, tm.faults = operator, faults
+    if closed_loop and not (inputs or operator or faults):
+        raise ConfigError(f"{src}: inputs: a closed-loop replay needs at least one disturbance or operator "
+                          "channel ([inputs], [operator] or [faults])")
+    return tm
+
+
+def _fault_channel(src: str, name: str, v) -> tuple[Channel, object]:
+    """[faults] NAME = { column = "C", PARAM = V }: the fault (a scenario fault name) is on
+    while the column is nonzero; PARAM is the fault's one parameter (docs/scenarios.md)."""
+    from .scenario.load import FAULTS
+
+    where = f"faults.{name}"
+    if name not in FAULTS:
+        raise ConfigError(f"{src}: {where}: unknown fault (known: {', '.join(FAULTS)})")
+    pname, unit, check, rule = FAULTS[name]
+    if isinstance(v, str):
+        v = {"column": v}
+    if not isinstance(v, dict) or not isinstance(v.get("column"), str):
+        raise ConfigError(f"{src}: {where}: expected a column name or {{column = \"NAME\"{', ' + pname + ' = ...' if pname else ''}}}, got {v!r}")
+    extra = set(v) - {"column"} - ({pname} if pname else set())
+    if extra:
+        raise ConfigError(f"{src}: {where}.{sorted(extra)[0]}: not a key of fault '{name}'"
+                          + (f" (it takes '{pname}')" if pname else " (it takes none)"))
+    param = None
+    if pname is not None:
+        if pname not in v:
+            raise ConfigError(f"{src}: {where}.{pname}: required for fault '{name}' ({unit})")
+        param = v[pname]
+        try:
+            ok = check(param) and not isinstance(param, bool)
+        except TypeError:
+            ok = False
+        if not ok:
+            raise ConfigError(f"{src}: {where}.{pname}: {rule}, got {param!r}")
+    return Channel(v["column"]), param
+
+
+def read_trace(path) -> dict:
+    """A trace file by its kind: a COMTRADE .cfg (beside its .dat) or a CSV."""
+    return read_trace_comtrade(path) if str(path).lower().endswith(".cfg") else read_trace_csv(path)
+
+
+def trace_times(tmap: TraceMap, table: dict, where: str) -> np.ndarray:
+    """The trace's time column in s, checked to increase."""
+    t_tr = tmap.time.values(table, f"{tmap.source}: trace.time")
+    if np.any(np.diff(t_tr) <= 0):
+        k = int(np.nonzero(np.diff(t_tr) <= 0)[0][0])
+        raise ConfigError(f"{where}: time column '{tmap.time.column}': not increasing at row {k + 2} "
+                          f"({t_tr[k]!r} then {t_tr[k + 1]!r})")
+    return t_tr
 
 
 def read_trace_csv(path) -> dict:
@@ -410,14 +492,9 @@ def trace_replay(trace_path, map_path, machine, converter=None, overrides=(), to
 
     tolerances = dict(tolerances or {})
     tmap = load_trace_map(map_path)
-    is_comtrade = str(trace_path).lower().endswith(".cfg")
-    table = read_trace_comtrade(trace_path) if is_comtrade else read_trace_csv(trace_path)
+    table = read_trace(trace_path)
     where = str(trace_path)
-    t_tr = tmap.time.values(table, f"{tmap.source}: trace.time")
-    if np.any(np.diff(t_tr) <= 0):
-        k = int(np.nonzero(np.diff(t_tr) <= 0)[0][0])
-        raise ConfigError(f"{where}: time column '{tmap.time.column}': not increasing at row {k + 2} "
-                          f"({t_tr[k]!r} then {t_tr[k + 1]!r})")
+    t_tr = trace_times(tmap, table, where)
     plant = load_plant(SimpleNamespace(machine=str(machine), converter=str(converter) if converter else None,
                                        overrides=list(overrides)))
     period_us = int(round(plant.derived["frame_period_us"]))

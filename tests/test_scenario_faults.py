@@ -34,6 +34,11 @@ class FixedSession:
     url = "fixed://"
     bye = False
     last_command_seq = 0
+    peer_restarted = False  # HostLoop asks (a controller that started over); never here
+
+    @property
+    def link(self):  # HostLoop asks session.link for its url and connection count
+        return self
 
     def __init__(self, cmd: sig.Command):
         self.cmd = cmd

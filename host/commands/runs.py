@@ -20,6 +20,8 @@ EXAMPLE = """examples:
   dcrig runs replay dcrig-demo --set machine.ra_ohm=0.02 --tolerance speed_rpm=2
   dcrig runs replay --trace site/f3-trip.csv --map site/f3-map.toml \\
       --machine configs/machines/kestrel_f3_stand.toml --converter configs/converters/kestrel_f3_dual.toml
+  dcrig runs replay dcrig-demo --closed-loop   # the recorded operator/load timeline, a live controller
+  dcrig runs replay dcrig-demo --closed-loop --link socket://192.0.2.10:5020   # ... against a real one
 
 A record is read, never changed. A run killed before its end shows status `unfinished`:
 its rows up to the last commit (at most 100 ms before the kill) are there, nothing after.
@@ -82,6 +84,16 @@ def add_subparser(sub):
                     "terminal voltage, speed, torque)")
     rp.add_argument("--tolerance", action="append", default=[], metavar="COL=ABS",
                     help="absolute tolerance of a column in its unit (default 1 %% of its recorded peak)")
+    rp.add_argument("--closed-loop", action="store_true",
+                    help="closed loop instead: the run's recorded operator and load timeline drives the model while "
+                    "a live controller answers (the emulated one as a process by default; --controller, --link); "
+                    "recorded in RUN/replays/closed-loop, judged (harm checks) and compared frame for frame. For a "
+                    "CSV or COMTRADE disturbance trace write a scenario with [replay] (docs/scenarios.md)")
+    rp.add_argument("--controller", choices=("process", "emulated"), default="process",
+                    help="--closed-loop: the emulated controller as a separate process over a virtual cable (as "
+                    "`dcrig demo` runs it: the same frames) or in-process (no fixed-point link encoding, so the frames differ)")
+    rp.add_argument("--link", metavar="URL", help="--closed-loop against the controller on this port or URL "
+                    "(it must drive no power stage)")
     rp.set_defaults(func=_do_replay)
 
 
@@ -244,6 +256,26 @@ def _do_replay(args):
             raise ConfigError(f"--tolerance: '{text}': expected COLUMN=VALUE, e.g. speed_rpm=2") from err
         if not sep:
             raise ConfigError(f"--tolerance: '{text}': expected COLUMN=VALUE, e.g. speed_rpm=2")
+    if args.closed_loop:
+        from ..scenario.replay import closed_loop_replay
+
+        if args.trace or args.map or args.machine or args.converter or not args.run:
+            raise ConfigError("--closed-loop: give a RUN (it brings its configs and timeline) and no --trace, --map, "
+                              "--machine or --converter; a CSV or COMTRADE trace goes in a scenario's [replay]")
+        res = closed_loop_replay(args.run, args.controller, args.link, args.overrides, columns, tolerances)
+        print(f"closed-loop replay of {res.source}: {res.frames} frames against "
+              f"{args.link or 'the emulated controller (' + args.controller + ')'}"
+              + (f" with {', '.join(args.overrides)}" if args.overrides else "") + f"; record {res.run_dir}")
+        if res.identical:
+            print("  reproduces the record frame for frame (every compared value equal to the bit)")
+        for d in res.departures:
+            print("  " + d.line())
+        flagged = [h for h in res.row["verdict"]["harm"] if h["flagged"]]
+        print("  machine-harm checks: " + ("none flagged" if not flagged else
+                                           "; ".join(f"{h['check']}: {h['text']}" for h in flagged)))
+        return 1 if res.departs or flagged else 0
+    if args.controller != "process" or args.link:
+        raise ConfigError("--controller and --link go with --closed-loop")
     if args.trace:
         from ..replay import trace_replay
 

@@ -10,6 +10,7 @@ EXAMPLE = """examples:
   dcrig scenario configs/scenarios/f3_field_rheostat.toml
   dcrig scenario configs/scenarios/f3_tacho_loss.toml --out /tmp/runs
   dcrig scenario configs/scenarios/f3_phase_loss.toml --link socket://192.0.2.10:5020   # a real controller
+  dcrig scenario configs/scenarios/f3_replay_bite_dip.toml   # a recorded bite and mains dip, closed loop
 
 exit status: 0 PASS, 1 FAIL, 2 bad input (one line naming file, key and rule)
 """
@@ -19,7 +20,8 @@ def add_subparser(sub):
     p = sub.add_parser("scenario", help="run one scenario and judge it (expectations, machine-harm checks)",
                        description="Run one scenario file lockstep - the plant, its controller (the emulated one "
                        "by default, or a real one on --link), the start state and the timed operator inputs, load "
-                       "changes and faults - then judge the record: each expectation PASS or FAIL with its measured "
+                       "changes and faults, or a recorded event replayed closed loop ([replay]: a CSV, COMTRADE or "
+                       "dcrig trace of disturbances and operator inputs) - then judge the record: each expectation PASS or FAIL with its measured "
                        "figure and margin, and the machine-harm checks. Writes the record, verdict.json and plots "
                        "to a new folder under --out. File format: docs/scenarios.md.",
                        epilog=EXAMPLE + "\n" + SAFETY, formatter_class=argparse.RawDescriptionHelpFormatter)

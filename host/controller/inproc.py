@@ -46,6 +46,7 @@ class InProcSession:
         self.frames = 0
         self.trips: list[sig.TripReport] = []
         self.link = self  # the loop and reports ask session.link.url
+        self.peer_restarted = False  # no link, so no controller HELLO after its commands (HostLoop asks)
 
     # the HostSession surface ------------------------------------------------------------------
     def handshake(self, timeout_s: float = 5.0, retry_s: float = 0.25):

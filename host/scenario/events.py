@@ -13,6 +13,8 @@ end of that frame.
 
 from __future__ import annotations
 
+import bisect
+
 from rtmodel import layout as L
 
 from .load import Action, Scenario
@@ -72,8 +74,10 @@ class ScenarioDriver:
             self._start(loop, a, t)
         keep = []
         for a, v0 in self._active:
-            end = a.at_s + (a.profile[-1][0] if a.profile else a.over_s)
-            if a.action in ("speed_ramp", "load_ramp"):
+            end = a.at_s + (a.profile[-1][0] if a.profile else a.times_s[-1] if a.times_s else a.over_s)
+            if a.action == "trace":
+                self._hold(loop, a, t)
+            elif a.action in ("speed_ramp", "load_ramp"):
                 f = min(1.0, (t - a.at_s) / a.over_s)
                 v = v0 + (a.value - v0) * f
                 if a.action == "speed_ramp":
@@ -117,6 +121,12 @@ class ScenarioDriver:
             self._active.append((a, 0.0))
             loop.u[L.U_LOAD_TORQUE_NM] = _interp(a.profile, 0.0)
             text = f"load torque profile of {len(a.profile)} points over {a.profile[-1][0]:g} s"
+        elif a.action == "trace":
+            self._hold(loop, a, t)
+            if len(a.times_s) > 1:
+                self._active.append((a, 0.0))
+            text = (f"replayed {a.target} {a.values[0]:g}" if len(a.times_s) == 1 else
+                    f"replayed trace of {a.target}: {len(a.times_s)} changes over {a.times_s[-1]:g} s")
         elif a.action == "fault":
             self._fault(loop, a, on=True)
             if a.over_s > 0:
@@ -124,6 +134,21 @@ class ScenarioDriver:
             text = f"fault {a.fault}" + (f" {a.param}" if a.param is not None else "") + (
                 f" for {a.over_s:g} s" if a.over_s > 0 else "")
         loop.event("timeline", f"{a.id}: {text}")
+
+    def _hold(self, loop, a: Action, t: float) -> None:
+        """A replayed channel: the sample in force at t (held from one sample to the next). A
+        sample within 1 % of a frame after t counts as at t: trace times are printed with few
+        digits (as host.replay does for an open-loop trace)."""
+        slack = 1e-9 + 0.01 * loop.frame_period_us * 1e-6
+        k = max(0, bisect.bisect_right(a.times_s, t - a.at_s + slack) - 1)
+        v = a.values[k]
+        if a.target == "speed_ref_rpm":
+            loop.operator.speed_ref_rpm = v
+        else:
+            from host.sim import INPUTS
+
+            idx, scale = INPUTS[a.target]
+            loop.u[idx] = v * scale
 
     def _fault(self, loop, a: Action, on: bool) -> None:
         u, s = loop.u, loop.sensors

@@ -62,6 +62,11 @@ class Action:
     fault: str = ""
     param: Any = None  # the fault's one parameter
     profile: tuple[tuple[float, float], ...] = ()  # load_profile: (t from at_s, N m)
+    # "trace" (closed-loop replay, host.scenario.replay): a held channel; target is a model
+    # input (host/sim.py INPUTS) or "speed_ref_rpm"; value k holds from times_s[k] after at_s
+    target: str = ""
+    times_s: tuple[float, ...] = ()
+    values: tuple[float, ...] = ()
 
 
 @dataclass
@@ -107,6 +112,7 @@ class Scenario:
     expects: list[Expect]
     harm: dict[str, Any] = field(default_factory=dict)
     harm_accept: list[str] = field(default_factory=list)
+    replay: Any = None  # host.scenario.replay.ReplaySource when the timeline comes from a trace
 
     def ids(self) -> set[str]:
         return {a.id for a in self.timeline}
@@ -213,22 +219,48 @@ def load_scenario(path: str | Path) -> Scenario:
     except tomllib.TOMLDecodeError as err:
         raise ConfigError(f"{src}: (file): not valid TOML ({err})") from err
     base = path.resolve().parent
-    r.known(data, ("scenario", "plant", "controller", "start", "timeline", "expect", "harm"), "")
+    r.known(data, ("scenario", "plant", "controller", "start", "timeline", "expect", "harm", "replay"), "")
 
     sc = _table(r, data, "scenario", required=True)
     r.known(sc, ("name", "description", "duration_s"), "scenario.")
     name = r.text(sc, "name", "scenario.")
     if not all(c.isalnum() or c in "_-" for c in name):
         raise r.fail("scenario.name", "letters, digits, '_' and '-' only", name)
-    duration = r.num(sc, "duration_s", "scenario.", check=lambda v: 0 < v <= 600, rule="must be in (0, 600] s")
+    replay = None
+    rp = _table(r, data, "replay")
+    if "replay" in data:  # closed-loop replay: the trace is (part of) the timeline; read and checked now
+        from .replay import load_replay
+
+        r.known(rp, ("source", "map"), "replay.")
+        rel = r.text(rp, "source", "replay.")
+        source = (base / rel).resolve()
+        if not source.exists():
+            raise r.fail("replay.source", "file or run folder not found", rel)
+        map_path = r.path(rp, "map", "replay.", base, default=None)
+        replay = load_replay(src, source, map_path)
+    duration_rule = "must be in (0, 600] s"
+    if replay is not None and "duration_s" not in sc:
+        duration = replay.duration_s  # the whole trace
+        if not 0 < duration <= 600:
+            raise r.fail("scenario.duration_s", f"{duration_rule} (the replayed trace's length; give a shorter "
+                         "duration_s)", duration)
+    else:
+        duration = r.num(sc, "duration_s", "scenario.", check=lambda v: 0 < v <= 600, rule=duration_rule)
     desc = sc.get("description", "")
     if not isinstance(desc, str):
         raise r.fail("scenario.description", "must be a string", desc)
 
-    pl = _table(r, data, "plant", required=True)
+    rec_configs = replay.configs if replay is not None else None
+    pl = _table(r, data, "plant", required=rec_configs is None)
     r.known(pl, ("machine", "converter", "set"), "plant.")
-    machine = r.path(pl, "machine", "plant.", base)
-    converter = r.path(pl, "converter", "plant.", base, default=None)
+    if rec_configs is not None and "machine" not in pl:  # the replayed record's plant, as run
+        machine = rec_configs / "machine.toml"
+        conv = rec_configs / "converter.toml"
+        converter = conv if conv.is_file() and "converter" not in pl else r.path(pl, "converter", "plant.", base,
+                                                                                  default=None)
+    else:
+        machine = r.path(pl, "machine", "plant.", base)
+        converter = r.path(pl, "converter", "plant.", base, default=None)
     plant_set = pl.get("set", [])
     if not isinstance(plant_set, list) or not all(isinstance(s, str) and "=" in s for s in plant_set):
         raise r.fail("plant.set", "must be a list of 'KEY=VALUE' strings", plant_set)
@@ -238,6 +270,9 @@ def load_scenario(path: str | Path) -> Scenario:
                  "trip_A"), "controller.")
     kind = r.text(ct, "kind", "controller.", "emulated", CONTROLLER_KINDS)
     settings = r.path(ct, "settings", "controller.", base, default=None)
+    if settings is None and rec_configs is not None and (rec_configs / "controller.toml").is_file() \
+            and kind in ("emulated", "process"):
+        settings = rec_configs / "controller.toml"  # the replayed record's controller settings, as run
     if kind in ("emulated", "process") and settings is None:
         raise ConfigError(f"{src}: controller.settings: required for kind '{kind}'")
     link = r.text(ct, "link", "controller.", "")
@@ -295,9 +330,11 @@ def load_scenario(path: str | Path) -> Scenario:
         raise r.fail("start.field_up", "must be true for state 'running' (a running machine has its field)", field_up)
 
     timeline = _timeline(r, data.get("timeline", []), base, duration, converter is not None)
+    if replay is not None:
+        timeline = _merge_replay(r, timeline, replay, duration, converter is not None)
     ids = {a.id for a in timeline}
     # the end of a fault with a duration, a ramp or a profile is an event of its own: "<id>.end"
-    ids |= {a.id + ".end" for a in timeline if a.over_s > 0 or a.profile}
+    ids |= {a.id + ".end" for a in timeline if a.over_s > 0 or a.profile or len(a.times_s) > 1}
     expects = _expects(r, data.get("expect", []), ids, duration)
 
     hm = _table(r, data, "harm")
@@ -333,7 +370,22 @@ def load_scenario(path: str | Path) -> Scenario:
                     converter=converter, plant_set=list(plant_set), controller_kind=kind, settings=settings,
                     settings_set=dict(sset), link=link, encoding=encoding, trip_classes=trip_classes, firmware=firmware,
                     start_state=state, start_speed_rpm=speed, start_temperature_C=temp, start_field_up=field_up, timeline=timeline,
-                    expects=expects, harm=harm, harm_accept=list(accept))
+                    expects=expects, harm=harm, harm_accept=list(accept), replay=replay)
+
+
+def _merge_replay(r: _Reader, timeline: list[Action], replay, duration: float, has_bridge: bool) -> list[Action]:
+    """The trace's actions join the file's own timeline; a replayed id already used by the
+    file is refused (the expectations would not know which one they mean)."""
+    own = {a.id for a in timeline}
+    for a in replay.actions:
+        if a.id in own:
+            raise r.fail("timeline", f"id '{a.id}' is also an action of the replayed trace ({replay.source.name}); "
+                         "give the timeline entry another id", a.id)
+        if a.fault in BRIDGE_FAULTS and not has_bridge:
+            raise r.fail(f"replay.map: faults.{a.fault}", "needs a bridge converter (plant.converter)", a.fault)
+    out = timeline + [a for a in replay.actions if a.at_s < duration]
+    out.sort(key=lambda a: a.at_s)
+    return out
 
 
 def _timeline(r: _Reader, items, base: Path, duration: float, has_bridge: bool) -> list[Action]:

@@ -216,6 +216,9 @@ def run_scenario(scn: Scenario, out_dir=None, *, link_url: str | None = None, fw
         "harm": harm_limits(plant, scn),
         "machine": plant.machine["machine.name"],
     }
+    if scn.replay is not None:  # closed-loop replay: where the timeline came from
+        meta["replay_source"] = str(scn.replay.source)
+        meta["replay_map"] = str(scn.replay.map) if scn.replay.map else ""
     run_dir = None
     recorder = None
     if out_dir is not None:
