@@ -250,9 +250,14 @@ def test_runs_export_writes_comtrade_that_the_independent_reader_opens(tmp_path,
     assert abs(ct.trigger_time - 0.2) < 2e-6
 
 
-@pytest.mark.parametrize("delay_s", [0.3, 0.7])
+@pytest.mark.parametrize("delay_s", [0.0, 0.3])
 def test_ctrl_c_right_after_start_is_one_line(delay_s):
+    from test_cli_interrupt_and_waits import _wait_until_mapped
+
     proc = _spawn("check", F3)
+    # a signal before the interpreter has installed its own SIGINT handler ends the process by
+    # the default action, before any dcrig code runs: wait until the imports are under way
+    assert _wait_until_mapped(proc.pid, "numpy") or proc.poll() is not None
     time.sleep(delay_s)
     proc.send_signal(signal.SIGINT)
     rc, so, se = _finish(proc, timeout_s=60)
