@@ -260,7 +260,7 @@ def run_scenario(scn: Scenario, out_dir=None, *, link_url: str | None = None, fw
                 if hasattr(link, "wait_connected"):
                     link.wait_connected(60.0)
             session = HostSession(link, encoding=scn.encoding, frame_period_us=period_us)
-            session.handshake(timeout_s=30.0)
+            session.handshake(timeout_s=30.0, peer_exit=proc.poll if proc is not None else None)
         gate = LinkGate(session)
         # the loop hands every frame row and event to the recorder as it happens (a killed run
         # keeps what it did); the verdicts read them back from the record afterwards

@@ -1,0 +1,98 @@
+"""Crash trials (issue 10 item 7), a bounded number: the host or the emulated controller killed
+with SIGKILL or interrupted with SIGINT at seeded random moments of a lockstep run.
+
+Each trial goes through tools/crash_trials.py's `run_trial()` (the script runs 200 and prints
+the table): the record left behind must open, say what happened (`unfinished` after a killed
+host, `stopped` after Ctrl-C, `error: ...` after a dead controller), hold every row up to its
+last commit exactly as an undisturbed lockstep run of the same set-up has it (the rerun is the
+reference: the runs are deterministic but for the wall-clock column `host_work_us`), leave no
+process of the trial alive, and never touch an earlier run's folder. The external guarantee
+leaned on for the first point is SQLite's atomic commit in WAL mode
+(https://sqlite.org/wal.html, https://sqlite.org/atomiccommit.html).
+"""
+
+import random
+import signal
+import sys
+from pathlib import Path
+
+import pytest
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tools"))
+import crash_trials as ct  # noqa: E402
+
+_RND = random.Random(20261202)
+
+
+@pytest.fixture(scope="module")
+def work(tmp_path_factory):
+    return tmp_path_factory.mktemp("crash")
+
+
+@pytest.fixture(scope="module")
+def refs(work, kernel):  # kernel: compiled once for the session before any child loads it
+    return {s: ct.reference_run(s, work / "reference") for s in ("demo", "scenario")}
+
+
+@pytest.fixture(scope="module")
+def fingerprints():
+    return {}
+
+
+def _mid_run(ref) -> float:
+    """A seeded moment well inside the run (after the record appeared, before the end)."""
+    return round(_RND.uniform(0.15, 0.6) * ref.run_s, 3)
+
+
+# (set-up, victim, signal, status the record must say); serve is compared with the demo's
+# reference: the same plant, controller settings and timeline, lockstep both
+CASES = [
+    ("demo", "host", signal.SIGKILL, "unfinished"),
+    ("demo", "controller", signal.SIGKILL, "error"),
+    ("serve", "host", signal.SIGINT, "stopped"),
+    ("scenario", "host", signal.SIGKILL, "unfinished"),
+    ("scenario", "controller", signal.SIGINT, "stopped"),
+]
+
+
+@pytest.mark.parametrize("setup,victim,sig,status", CASES, ids=[f"{c[0]}-{c[1]}-{c[2].name}" for c in CASES])
+def test_a_kill_keeps_every_committed_row_and_leaves_no_process(setup, victim, sig, status, work, refs, fingerprints):
+    ref = refs["demo" if setup == "serve" else setup]
+    t = ct.run_trial(setup, victim, sig, _mid_run(ref), work, ref, grace_s=15.0, fingerprints=fingerprints)
+    assert t.signalled, "the run ended before the signal: the moment was not inside the run"
+    assert t.problems == [], t.problems
+    assert t.new_folders == 1 and t.records == 1
+    assert t.statuses == [status]
+    assert t.lost == 0 and t.orphans == 0
+    if victim == "host" and sig == signal.SIGKILL:
+        assert t.host_exit == -signal.SIGKILL
+    if victim == "host" and sig == signal.SIGINT:
+        assert t.host_exit == 130  # `error: interrupted`
+    if victim == "controller":
+        assert t.host_exit == 2  # the dead peer ends the run as an error, the record closed
+
+
+def test_a_restarted_run_never_changed_an_earlier_record(work, refs, fingerprints):
+    # runs after the parametrized trials (file order): a second run into the same --out
+    ref = refs["scenario"]
+    t = ct.run_trial("scenario", "host", signal.SIGKILL, _mid_run(ref), work, ref, fingerprints=fingerprints)
+    assert t.lost == 0 and t.orphans == 0 and t.new_folders == 1
+    assert len([d for d in fingerprints if d.parent.name == "scenario"]) >= 2
+    assert ct.check_overwrites(fingerprints) == 0
+
+
+def test_a_controller_that_dies_before_its_hello_ends_the_handshake_at_once():
+    """Found by the trials: the scenario runner and the demo waited the whole handshake timeout
+    (30 s, 20 s) for a controller process they had started and that was already dead."""
+    from host.errors import LinkError, LinkTimeout
+    from host.link import HostSession, VirtualCable
+
+    with VirtualCable() as cable:
+        link = cable.host_link()
+        try:
+            session = HostSession(link, encoding="fixed", frame_period_us=3333)
+            with pytest.raises(LinkError, match=r"controller process ended \(exit status 3\)") as err:
+                session.handshake(timeout_s=60.0, peer_exit=lambda: 3)
+            assert not isinstance(err.value, LinkTimeout)
+        finally:
+            link.close()
