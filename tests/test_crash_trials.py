@@ -16,6 +16,7 @@ import signal
 import sys
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tools"))
@@ -96,3 +97,45 @@ def test_a_controller_that_dies_before_its_hello_ends_the_handshake_at_once():
             assert not isinstance(err.value, LinkTimeout)
         finally:
             link.close()
+
+
+def _record_of(folder: Path, ref, rows, status="complete"):
+    from host.record import RunRecorder
+
+    folder.mkdir()
+    rec = RunRecorder(folder / "record.sqlite", ref.columns, {"trial": "judge check"})
+    for r in rows:
+        rec.frame(r)
+    rec.close(status)
+
+
+def test_the_judge_counts_a_changed_row_a_gap_and_a_fresh_command_after_departing(tmp_path, refs):
+    """check_record() must be able to fail: a record that differs from the rerun by one value,
+    one that misses a row, and a controller-kill record that goes on with fresh commands after
+    it departed from the rerun all count as lost rows."""
+    ref = refs["scenario"]
+    good = ref.frames[:200].copy()
+    t = ct.Trial("scenario", "host", int(signal.SIGKILL), 0.0)
+    _record_of(tmp_path / "good", ref, good)
+    ct.check_record(tmp_path / "good", ref, "host", t)
+    assert (t.records, t.lost, t.problems) == (1, 0, [])
+
+    changed = good.copy()
+    changed[57, ref.columns.index("armature_current_A")] += 1e-9
+    t = ct.Trial("scenario", "host", int(signal.SIGKILL), 0.0)
+    _record_of(tmp_path / "changed", ref, changed)
+    ct.check_record(tmp_path / "changed", ref, "host", t)
+    assert t.lost >= 1 and "differ from the reference" in t.problems[0]
+
+    gap = np.delete(good, 120, axis=0)
+    t = ct.Trial("scenario", "host", int(signal.SIGKILL), 0.0)
+    _record_of(tmp_path / "gap", ref, gap)
+    ct.check_record(tmp_path / "gap", ref, "host", t)
+    assert t.lost >= 1 and any("gaps in time" in p for p in t.problems)
+
+    fresh = good.copy()
+    fresh[150:, ref.columns.index("speed_rpm")] += 1.0  # departs at row 150 ...
+    t = ct.Trial("scenario", "controller", int(signal.SIGKILL), 0.0)
+    _record_of(tmp_path / "fresh", ref, fresh)
+    ct.check_record(tmp_path / "fresh", ref, "controller", t)
+    assert t.lost >= 1 and "fresh command" in t.problems[0]  # ... yet its commands go on
