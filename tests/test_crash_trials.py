@@ -139,3 +139,58 @@ def test_the_judge_counts_a_changed_row_a_gap_and_a_fresh_command_after_departin
     _record_of(tmp_path / "fresh", ref, fresh)
     ct.check_record(tmp_path / "fresh", ref, "controller", t)
     assert t.lost >= 1 and "fresh command" in t.problems[0]  # ... yet its commands go on
+
+
+def test_a_kill_while_the_record_is_created_leaves_no_record_file(tmp_path, monkeypatch):
+    """Found by the trials (trial 153 of the first 200-run): a scenario host killed 0.67 s
+    after its record appeared left record.sqlite with a hot rollback journal beside it (the
+    kill came while the empty file was being set up), and the read-only reader could not open
+    it. The record is now built under a temporary name and linked into place whole."""
+    from host.record import RunRecorder, open_record
+    from host.record.store import RecordError
+
+    class Killed(BaseException):
+        pass
+
+    def die(*_a, **_k):
+        raise Killed("the process dies here")
+
+    monkeypatch.setattr("host.record.store.os.link", die)
+    with pytest.raises(Killed):
+        RunRecorder(tmp_path / "record.sqlite", ("time_s", "x"), {"trial": "creation"})
+    assert not (tmp_path / "record.sqlite").exists()
+    with pytest.raises(RecordError, match="no such record file"):
+        open_record(tmp_path)
+    monkeypatch.undo()
+    rec = RunRecorder(tmp_path / "record.sqlite", ("time_s", "x"), {"trial": "creation"})  # a restart
+    rec.frame(np.array([0.001, 2.0]))
+    rec.close("complete")
+    with open_record(tmp_path) as rd:
+        assert rd.status == "complete" and rd.frames().tolist() == [[0.001, 2.0]]
+    assert sorted(p.name for p in tmp_path.iterdir() if not p.name.startswith(".")) == ["record.sqlite"]
+
+
+def test_a_record_left_with_a_hot_journal_is_refused_with_one_line(tmp_path):
+    """A record from before the fix, killed while it was created: one clear line, no traceback."""
+    import sqlite3
+
+    from host.record import open_record
+    from host.record.store import RecordError
+
+    path = tmp_path / "record.sqlite"
+    db = sqlite3.connect(path, isolation_level=None)
+    db.execute("PRAGMA journal_mode=DELETE")
+    db.execute("CREATE TABLE t(x)")
+    db.execute("BEGIN")
+    db.execute("INSERT INTO t VALUES (randomblob(200000))")
+    db.execute("PRAGMA cache_size=1")  # spill to the file: the journal is hot from here on
+    db.execute("INSERT INTO t VALUES (randomblob(200000))")
+    journal = Path(f"{path}-journal").read_bytes()
+    image = path.read_bytes()
+    db.execute("ROLLBACK")
+    db.close()
+    path.write_bytes(image)  # the files as a killed process leaves them
+    Path(f"{path}-journal").write_bytes(journal)
+    with pytest.raises(RecordError) as err:
+        open_record(tmp_path)
+    assert "\n" not in str(err.value) and str(path) in str(err.value)

@@ -124,7 +124,11 @@ def fingerprint(run_dir: Path) -> tuple:
     """(status, rows, sha256 of the rows, events) of a record, or None when the folder holds none."""
     if not (run_dir / "record.sqlite").exists():
         return None
-    with open_record(run_dir) as rec:
+    try:
+        rec = open_record(run_dir)
+    except RecordError as err:  # counted by check_record already; the fingerprint notes it
+        return ("does not open", str(err))
+    with rec:
         rows = rec.frames()
         return rec.status, len(rows), hashlib.sha256(np.ascontiguousarray(rows).tobytes()).hexdigest(), len(rec.events())
 
