@@ -194,3 +194,25 @@ def test_a_record_left_with_a_hot_journal_is_refused_with_one_line(tmp_path):
     with pytest.raises(RecordError) as err:
         open_record(tmp_path)
     assert "\n" not in str(err.value) and str(path) in str(err.value)
+
+
+def test_a_ctrl_c_after_the_work_is_done_does_not_change_the_exit_status(monkeypatch):
+    """Found by the trials: a SIGINT in the last moments of a finished `dcrig serve` (record
+    complete) killed the process by the signal during interpreter shutdown, status -2 instead
+    of its own. After main() returned, run() ignores SIGINT."""
+    from host import cli
+
+    seen = {}
+
+    def fake_exit(code):
+        seen["code"] = code
+        seen["sigint"] = signal.getsignal(signal.SIGINT)
+
+    before = signal.getsignal(signal.SIGINT)
+    monkeypatch.setattr(cli, "main", lambda: 0)
+    monkeypatch.setattr(cli.sys, "exit", fake_exit)
+    try:
+        cli.run()
+    finally:
+        signal.signal(signal.SIGINT, before)
+    assert seen == {"code": 0, "sigint": signal.SIG_IGN}
