@@ -242,7 +242,10 @@ def run_scenario(scn: Scenario, out_dir=None, *, link_url: str | None = None, fw
             warm_kernel(plant)  # compile before a peer starts waiting for the handshake
             if kind in ("process", "c_example"):
                 cable = VirtualCable()
-                link = cable.host_link()
+                # the far end held only until the controller answers: from then on its death
+                # closes the cable and ends the run at once (found by tools/crash_trials.py: a
+                # SIGKILLed controller left the host waiting 5 s per frame, for many minutes)
+                link = cable.host_link(hold_far_end=True)
                 if kind == "process":
                     env = dict(os.environ)
                     env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
@@ -261,6 +264,8 @@ def run_scenario(scn: Scenario, out_dir=None, *, link_url: str | None = None, fw
                     link.wait_connected(60.0)
             session = HostSession(link, encoding=scn.encoding, frame_period_us=period_us)
             session.handshake(timeout_s=30.0, peer_exit=proc.poll if proc is not None else None)
+            if hasattr(link, "release_peer_hold"):
+                link.release_peer_hold()
         gate = LinkGate(session)
         # the loop hands every frame row and event to the recorder as it happens (a killed run
         # keeps what it did); the verdicts read them back from the record afterwards
@@ -268,7 +273,9 @@ def run_scenario(scn: Scenario, out_dir=None, *, link_url: str | None = None, fw
         _start_state(loop, scn)
         loop.hooks.append(ScenarioDriver(scn, gate))
 
-        loop.run_lockstep(n_frames, on_frame=on_frame, command_timeout_s=5.0 if kind != "emulated" else None)
+        # a controller on a link that stops answering (dead, unplugged) ends the run after 10 s
+        loop.run_lockstep(n_frames, on_frame=on_frame, command_timeout_s=5.0 if kind != "emulated" else None,
+                          peer_timeout_s=10.0 if kind != "emulated" else None)
     except (KeyboardInterrupt, DcrigError) as err:
         stopped = err
         status = f"stopped: {err.__class__.__name__}: {err}"
