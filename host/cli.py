@@ -102,6 +102,13 @@ def run() -> None:
     except KeyboardInterrupt:
         print("error: interrupted", file=sys.stderr)
         code = 130
+    # the work is done and the record closed: a Ctrl-C from here on has nothing left to stop.
+    # Interpreter shutdown puts SIGINT back to its default, so without this a late Ctrl-C
+    # killed the process by the signal (status -2, found by tools/crash_trials.py) instead of
+    # letting it exit with its own status
+    import signal
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
     sys.exit(code)
 
 

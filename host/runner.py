@@ -279,7 +279,8 @@ def run_closed_loop(plant, link, *, encoding: str, paced: bool, timeline: Timeli
                     watchdog_periods: int = 10, on_link_loss: str = "block", handshake_timeout_s: float = 20.0,
                     plot: bool = True, out=None, command_timeout_s: float = 2.0,
                     peer_timeout_s: float = 5.0, max_error_rate: float | None = 0.01,
-                    run_dir=None, meta: dict | None = None, extra_configs: dict | None = None) -> HostLoop:
+                    run_dir=None, meta: dict | None = None, extra_configs: dict | None = None,
+                    peer_exit=None) -> HostLoop:
     """Handshake on `link`, run the timeline lockstep or paced, print the summary, keep the record.
 
     run_dir: a run folder made by host.record.new_run_dir (the command makes it before the
@@ -287,6 +288,8 @@ def run_closed_loop(plant, link, *, encoding: str, paced: bool, timeline: Timeli
     new run folder is made here (out_dir itself, or out_dir-2, -3, ... when taken). Every
     frame and event goes to run_dir/record.sqlite as the run goes; frames.csv, events.csv and
     run.png are exported from the record at the end, also after Ctrl-C or a link error.
+    peer_exit: the poll() of a controller process this host started (the demo): its death
+    before the handshake ends the wait at once.
     """
     out = out if out is not None else sys.stdout  # looked up per call (tests swap sys.stdout)
     from .link import HostSession
@@ -312,7 +315,7 @@ def run_closed_loop(plant, link, *, encoding: str, paced: bool, timeline: Timeli
         session = HostSession(link, encoding=encoding, frame_period_us=period_us)
         loop = HostLoop(plant, session, period_us, watchdog_periods=watchdog_periods, on_link_loss=on_link_loss,
                         max_error_rate=max_error_rate, recorder=recorder)
-        peer = session.handshake(timeout_s=handshake_timeout_s)
+        peer = session.handshake(timeout_s=handshake_timeout_s, peer_exit=peer_exit)
         if hasattr(link, "release_peer_hold"):
             link.release_peer_hold()  # a pty: the controller holds its end now; its death closes the cable
     except BaseException as err:  # no run: the record says why, the error goes on

@@ -104,7 +104,7 @@ def _do_demo(args):
                 loop = run_closed_loop(plant, cable.host_link(hold_far_end=True), encoding=args.encoding, paced=args.paced,
                                        timeline=timeline, run_dir=run_dir, plot=not args.no_plot,
                                        meta={"run_name": "demo", "controller": "emulated (separate process)"},
-                                       extra_configs={"controller": settings})
+                                       extra_configs={"controller": settings}, peer_exit=proc.poll)
             finally:
                 try:
                     proc.wait(timeout=10)

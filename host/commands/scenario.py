@@ -37,8 +37,8 @@ def _do_scenario(args):
     from ..scenario import load_scenario
     from ..suite.run import run_one
 
+    load_scenario(args.file)  # bad input: one line, exit 2, before the banner and before anything runs
     print(SAFETY + "\n")
-    load_scenario(args.file)  # bad input: one line, exit 2, before anything runs
     row = run_one(args.file, args.out, args.link, plots=not args.no_plot)
     if row["outcome"] == "error":
         from ..errors import DcrigError

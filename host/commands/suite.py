@@ -45,11 +45,12 @@ def _do_suite(args):
     from ..suite.report import GOOD, write_html, write_junit
     from ..suite.run import run_suite
 
-    print(SAFETY + "\n")
+    # bad input first: one line, exit 2, before the banner and before any folder is made
     suite = load_suite(args.file)
     if args.jobs is not None and args.jobs < 1:
         raise ConfigError(f"--jobs: must be >= 1, got {args.jobs}")
     baseline = load_baseline(args.baseline) if args.baseline else None
+    print(SAFETY + "\n")
     jobs = args.jobs or os.cpu_count() or 1
     out = new_run_dir(args.out, suite.name)
     print(f"suite {suite.name}: {len(suite.runs)} scenarios, {jobs} worker(s), results in {out}", flush=True)

@@ -124,25 +124,42 @@ class RunRecorder:
             "python": sys.version.split()[0],
         }
         full_meta.update(meta or {})
+        if self.path.exists():
+            raise RecordError(f"{self.path}: a record exists already (records are never overwritten)")
+        # Built under a temporary name (schema, meta, WAL mode), closed, then linked into place:
+        # a process killed while the record is being created leaves no record.sqlite at all,
+        # never an empty file or one with a hot rollback journal that a reader cannot open
+        # (found by tools/crash_trials.py). os.link fails when the name is taken, so a record
+        # is still never overwritten.
+        tmp = self.path.with_name(f".{self.path.name}.creating-{os.getpid()}")
         try:
-            # "x": the record is never overwritten; a second run gets its own folder
-            fd = os.open(self.path, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o644)
-            os.close(fd)
+            for leftover in (tmp, Path(f"{tmp}-journal"), Path(f"{tmp}-wal"), Path(f"{tmp}-shm")):
+                leftover.unlink(missing_ok=True)
+            db = sqlite3.connect(tmp, check_same_thread=False, isolation_level=None)
+            try:
+                db.execute("PRAGMA journal_mode=WAL")
+                db.execute(f"PRAGMA application_id={APPLICATION_ID}")
+                db.execute(f"PRAGMA user_version={SCHEMA_VERSION}")
+                db.execute("BEGIN")
+                for stmt in _SCHEMA.strip().split(";"):
+                    if stmt.strip():
+                        db.execute(stmt)
+                db.executemany("INSERT INTO meta VALUES (?, ?)",
+                               [(k, json.dumps(v, default=str)) for k, v in full_meta.items()])
+                db.execute("COMMIT")
+            finally:
+                db.close()  # the last connection: the WAL is folded in, one file is left
+            os.link(tmp, self.path)
+            tmp.unlink()
             db = sqlite3.connect(self.path, check_same_thread=False, isolation_level=None)
-            db.execute("PRAGMA journal_mode=WAL")
             db.execute(f"PRAGMA synchronous={synchronous}")
-            db.execute(f"PRAGMA application_id={APPLICATION_ID}")
-            db.execute(f"PRAGMA user_version={SCHEMA_VERSION}")
-            db.execute("BEGIN")
-            for stmt in _SCHEMA.strip().split(";"):
-                if stmt.strip():
-                    db.execute(stmt)
-            db.executemany("INSERT INTO meta VALUES (?, ?)",
-                           [(k, json.dumps(v, default=str)) for k, v in full_meta.items()])
-            db.execute("COMMIT")
+            if db.execute("PRAGMA journal_mode").fetchone()[0].lower() != "wal":
+                raise sqlite3.OperationalError("the record did not stay in WAL mode")
         except FileExistsError as err:
+            tmp.unlink(missing_ok=True)
             raise RecordError(f"{self.path}: a record exists already (records are never overwritten)") from err
         except (OSError, sqlite3.Error) as err:
+            tmp.unlink(missing_ok=True)
             raise RecordError(f"{self.path}: cannot create the record ({err})") from err
         self._db = db
         # caller side (the real-time thread)
@@ -503,6 +520,9 @@ def open_record(path) -> RecordReader:
         app_id = db.execute("PRAGMA application_id").fetchone()[0]
         version = db.execute("PRAGMA user_version").fetchone()[0]
     except sqlite3.Error as err:
+        if Path(f"{path}-journal").exists():  # records made before the fix of creation (above)
+            raise RecordError(f"{path}: the run was killed while its record was being created "
+                              f"(a rollback journal is left beside it); it holds no frames") from err
         raise RecordError(f"{path}: not a readable dcrig record ({err})") from err
     if app_id != APPLICATION_ID:
         db.close()

@@ -205,19 +205,31 @@ def _read_profile(r: _Reader, path: Path, where: str) -> tuple[tuple[float, floa
 
 
 # ------------------------------------------------------------------------------------------ loader
+def read_toml(path: Path, what: str) -> dict:
+    """A scenario or suite file as a dict; every way it cannot be read is one ConfigError line
+    (a missing file, a folder, bytes that are not UTF-8, bad TOML, nesting too deep)."""
+    src = str(path)
+    try:
+        return tomllib.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError as err:
+        raise ConfigError(f"{src}: (file): not found") from err
+    except UnicodeDecodeError as err:
+        raise ConfigError(f"{src}: (file): must be UTF-8 text (TOML), got byte 0x{err.object[err.start]:02x} "
+                          f"at offset {err.start}") from err
+    except OSError as err:
+        raise ConfigError(f"{src}: (file): cannot read ({err.strerror})") from err
+    except tomllib.TOMLDecodeError as err:
+        raise ConfigError(f"{src}: (file): not valid TOML ({err})") from err
+    except RecursionError as err:
+        raise ConfigError(f"{src}: (file): arrays or tables nested too deeply to be {what} file") from err
+
+
 def load_scenario(path: str | Path) -> Scenario:
     """Read and validate one scenario file. Raises ConfigError (one line) on any problem."""
     path = Path(path)
     src = str(path)
     r = _Reader(src)
-    try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError as err:
-        raise ConfigError(f"{src}: (file): not found") from err
-    except OSError as err:
-        raise ConfigError(f"{src}: (file): cannot read ({err.strerror})") from err
-    except tomllib.TOMLDecodeError as err:
-        raise ConfigError(f"{src}: (file): not valid TOML ({err})") from err
+    data = read_toml(path, "a scenario")
     base = path.resolve().parent
     r.known(data, ("scenario", "plant", "controller", "start", "timeline", "expect", "harm", "replay"), "")
 

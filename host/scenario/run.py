@@ -249,7 +249,10 @@ def run_scenario(scn: Scenario, out_dir=None, *, link_url: str | None = None, fw
             warm_kernel(plant)  # compile before a peer starts waiting for the handshake
             if kind in ("process", "c_example"):
                 cable = VirtualCable()
-                link = cable.host_link()
+                # the far end held only until the controller answers: from then on its death
+                # closes the cable and ends the run at once (found by tools/crash_trials.py: a
+                # SIGKILLed controller left the host waiting 5 s per frame, for many minutes)
+                link = cable.host_link(hold_far_end=True)
                 if kind == "process":
                     env = dict(os.environ)
                     env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
@@ -267,7 +270,7 @@ def run_scenario(scn: Scenario, out_dir=None, *, link_url: str | None = None, fw
                 if hasattr(link, "wait_connected"):
                     link.wait_connected(60.0)
             session = HostSession(link, encoding=scn.encoding, frame_period_us=period_us)
-            session.handshake(timeout_s=30.0)
+            session.handshake(timeout_s=30.0, peer_exit=proc.poll if proc is not None else None)
             if hasattr(link, "release_peer_hold"):
                 link.release_peer_hold()  # the controller holds its end now: its death closes the cable
         gate = LinkGate(session)

@@ -6,12 +6,11 @@ any run starts: one ConfigError line naming the file and key, exit 2.
 
 from __future__ import annotations
 
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
 from host.errors import ConfigError
-from host.scenario.load import Scenario, _Reader, load_scenario
+from host.scenario.load import Scenario, _Reader, load_scenario, read_toml
 
 DEFAULT_TOLERANCES = {"ms": 3.0, "s": 0.05, "relative": 0.05}
 
@@ -35,14 +34,7 @@ def load_suite(path: str | Path) -> Suite:
     path = Path(path)
     src = str(path)
     r = _Reader(src)
-    try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError as err:
-        raise ConfigError(f"{src}: (file): not found") from err
-    except OSError as err:
-        raise ConfigError(f"{src}: (file): cannot read ({err.strerror})") from err
-    except tomllib.TOMLDecodeError as err:
-        raise ConfigError(f"{src}: (file): not valid TOML ({err})") from err
+    data = read_toml(path, "a suite")
     r.known(data, ("suite", "baseline", "run"), "")
     st = data.get("suite")
     if not isinstance(st, dict):
