@@ -40,13 +40,20 @@ _WORKER_STATE: dict = {}
 
 
 def warm_kernel_arrays(p: np.ndarray, x: np.ndarray, u: np.ndarray) -> float:
-    """Compile (first time on a machine) or load from numba's cache the step kernel."""
-    t0 = time.perf_counter()
-    from rtmodel import layout as L
-    from rtmodel.kernel import step_frame
+    """Compile (first time on a machine) or load from numba's cache the frame kernel the runs
+    use: the build for p's codes, as host.params.Plant.kernel() picks it (the generic one
+    under DCRIG_KERNEL=generic); a campaign's spreads change values, never the codes."""
+    import os
 
+    t0 = time.perf_counter()
+    import rtmodel.kernel as K
+    from rtmodel import layout as L
+
+    from ..params import KERNEL_ENV
+
+    kernel = K.step_frame if os.environ.get(KERNEL_ENV, "specialised") == "generic" else K.kernel_for(p)
     y = np.zeros(L.N_OUTPUT)
-    step_frame(x.copy(), p, u.copy(), y, 0)
+    kernel(x.copy(), p, u.copy(), y, 0)
     return time.perf_counter() - t0
 
 
