@@ -14,7 +14,8 @@ import textwrap
 from .errors import DcrigError
 
 # one module per subcommand under host.commands, each with add_subparser(subparsers)
-COMMANDS = ("check", "steady", "sim", "demo", "serve", "controller", "identify", "calc")
+COMMANDS = ("check", "steady", "sim", "demo", "serve", "controller", "identify", "calc", "runs", "scenario", "suite",
+            "campaign")
 # old command names that still work for one release, listed nowhere (not in help, not in the
 # invalid-choice message): main() swaps them for the new name and prints a note
 HIDDEN_ALIASES = {"op": "steady"}
@@ -101,6 +102,13 @@ def run() -> None:
     except KeyboardInterrupt:
         print("error: interrupted", file=sys.stderr)
         code = 130
+    # the work is done and the record closed: a Ctrl-C from here on has nothing left to stop.
+    # Interpreter shutdown puts SIGINT back to its default, so without this a late Ctrl-C
+    # killed the process by the signal (status -2, found by tools/crash_trials.py) instead of
+    # letting it exit with its own status
+    import signal
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
     sys.exit(code)
 
 

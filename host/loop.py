@@ -2,7 +2,8 @@
 
 Owns: mapping Command -> model inputs and model outputs -> Feedback (the plant's sensors),
 the lockstep and paced real-time loops, the watchdog reaction, the frame record and the
-timing statistics. The link is a host.link.HostSession; the model is rtmodel.kernel.step_frame.
+timing statistics. The link is a host.link.HostSession; the model is the plant's frame kernel (Plant.kernel(),
+a build of rtmodel.kernel.step_frame specialised for the plant's codes), fetched once per run.
 
 Per frame the Python work is constant: decode one command, write a few input slots, one
 numba call for n_sub steps, copy one output row into a preallocated record, encode one
@@ -40,7 +41,7 @@ REC_COLUMNS = (
     "controller_trip", "trip_code", "armature_current_A", "armature_current_peak_A", "field_current_A",
     "terminal_voltage_V", "emf_V", "speed_rpm", "torque_Nm", "load_torque_Nm", "firing_angle_deg",
     "armature_temperature_C", "model_status", "host_status", "link_ok", "op_speed_ref_rpm",
-    "host_work_us", "link_errors", "refused_commands",
+    "host_work_us", "field_mode", "link_errors", "refused_commands",
 )  # fmt: skip
 # link_errors: running total of every detected link error (CRC, COBS, runt, oversize, torn,
 # bad frame, sequence gap/repeat/out-of-order/restart, unexpected kind); refused_commands:
@@ -83,8 +84,7 @@ def warm_kernel(plant: Plant) -> float:
     import time as _time
 
     t0 = _time.perf_counter()
-    from rtmodel.kernel import step_frame
-
+    step_frame = plant.kernel()
     x, u, y = plant.new_state(), plant.new_inputs(), np.zeros(L.N_OUTPUT)
     step_frame(x, plant.p, u, y, 0)
     return _time.perf_counter() - t0
@@ -135,16 +135,18 @@ class HostLoop:
     watchdog_periods : frames without a valid command that make a link-loss event
     on_link_loss : "block" (firing blocked, contactor opened) or "hold" (last command held)
     clock : injectable ns clock (tests force overruns with it)
+    recorder : a host.record.RunRecorder (columns REC_COLUMNS) that gets every frame row and
+        event as it happens, so a killed run keeps what it did; the in-memory array stays for
+        the live summary. The hand-off publishes the array and its row count (no copy, no
+        disk I/O on this thread); the recorder's writer thread reads the new rows from it.
     """
 
     def __init__(self, plant: Plant, session, frame_period_us: int, watchdog_periods: int = 10,
                  on_link_loss: str = "block", record_rows: int = 65536, clock=time.perf_counter_ns,
-                 max_error_rate: float = 0.01, error_rate_min_frames: int = 100):
+                 max_error_rate: float = 0.01, error_rate_min_frames: int = 100, recorder=None):
         if on_link_loss not in ("block", "hold"):
             raise ConfigError(f"link: on_link_loss: expected one of ['block', 'hold'], got {on_link_loss!r}")
-        from rtmodel.kernel import step_frame
-
-        self._step = step_frame
+        self._step = plant.kernel()  # the build for this plant's codes, fetched once per run
         self.plant = plant
         self.session = session
         self.frame_period_us = int(frame_period_us)
@@ -168,6 +170,7 @@ class HostLoop:
         self.record = np.zeros((record_rows, len(REC_COLUMNS)))  # doubles when full
         self.n_rec = 0
         self.events: list[tuple[float, str, str]] = []  # (time_s, kind, text)
+        self.recorder = recorder
         self.stats = LoopStats()
         self.last_cmd = sig.Command()
         self.fb = sig.Feedback()
@@ -185,6 +188,8 @@ class HostLoop:
         self._link_err_last: dict = {}
         self._refused_seen = 0
         self._refused_now = False  # a command was refused in this frame (HOST_COMMAND_REFUSED)
+        # an in-process controller has no channel, so nothing to count (no deframer, no seq check)
+        self._has_channel = session is not None and hasattr(session, "rx")
         self.lockstep = False  # set by run_lockstep (HOST_LOCKSTEP in every feedback)
         self.hooks = []  # callables hook(loop) before each frame (scenario timeline, faults)
         self.supply = int(self.p[L.P_SUPPLY_KIND])
@@ -373,7 +378,7 @@ class HostLoop:
                 self.event("model", f"overspeed: {self.y[L.Y_SPEED_RPM]:.0f} r/min above the machine's limit "
                                     f"{self.overspeed_rpm:.0f} r/min")
         self._overspeed = over
-        if self.session is not None:
+        if self.session is not None and self._has_channel:
             self._note_link_errors()
         if c.trip and not self._trip_logged:
             self._trip_logged = True
@@ -411,9 +416,12 @@ class HostLoop:
         r[21] = 0.0 if self._link_lost else 1.0
         r[22] = self.operator.speed_ref_rpm
         r[23] = (self.clock() - work_start_ns) * 1e-3
-        r[24] = self._link_err_seen
-        r[25] = self._refused_seen
+        r[24] = c.field_mode  # with the command columns, what an open-loop replay needs
+        r[25] = self._link_err_seen
+        r[26] = self._refused_seen
         self.n_rec = k + 1
+        if self.recorder is not None:
+            self.recorder.publish(self.record, k + 1)  # zero copy: rows up to k are final
 
     # the counters that make up "link errors": each is a detected fault of the channel
     LINK_ERROR_COUNTERS = ("crc_errors", "cobs_errors", "oversize", "runts", "torn", "bad_frames", "unexpected",
@@ -422,6 +430,8 @@ class HostLoop:
     def link_error_counts(self) -> dict[str, int]:
         """Detected link errors per class (see LINK_ERROR_COUNTERS), and refused commands per class."""
         sess = self.session
+        if not self._has_channel:
+            return {}
         d = sess.link.deframer
         rx = sess.rx
         out = {"crc_errors": d.crc_errors, "cobs_errors": d.cobs_errors, "oversize": d.oversize, "runts": d.runts,
@@ -461,8 +471,11 @@ class HostLoop:
         extra = f"; last refusal {sess.last_refusal}" if any(k.startswith("refused_") for k in moved) else ""
         self.event(kind, f"errors detected: {text}{extra}")
 
-    def event(self, kind: str, text: str) -> None:
-        self.events.append((float(self.y[L.Y_TIME_S]), kind, text))
+    def event(self, kind: str, text: str, **data) -> None:
+        t = float(self.y[L.Y_TIME_S])
+        self.events.append((t, kind, text))
+        if self.recorder is not None:
+            self.recorder.event(t, kind, text, **data)
 
     def rows(self) -> np.ndarray:
         return self.record[: self.n_rec]
@@ -485,7 +498,7 @@ class HostLoop:
         sess = self.session
         self.lockstep = True
         timeout = command_timeout_s or max(0.2, self.frame_period_us * 1e-6)
-        connects = getattr(sess.link, "connects", None)
+        connects = getattr(getattr(sess, "link", None), "connects", None)
         sess.send_feedback(self.make_feedback())
         last_valid = time.monotonic()
         for _ in range(n_frames):
@@ -494,10 +507,12 @@ class HostLoop:
             if cmd is None and sess.bye:
                 self.event("link", "controller said bye")
                 break
-            now_connects = getattr(sess.link, "connects", None)
-            if sess.peer_restarted or now_connects != connects:
+            now_connects = getattr(getattr(sess, "link", None), "connects", None)
+            # a channel-less session (in-process controller, playback) never restarts
+            restarted = getattr(sess, "peer_restarted", False)
+            if restarted or now_connects != connects:
                 connects = now_connects
-                self._rehandshake(handshake_timeout_s, "reconnected" if not sess.peer_restarted else "restarted")
+                self._rehandshake(handshake_timeout_s, "restarted" if restarted else "reconnected")
                 sess.send_feedback(self.make_feedback())
                 continue
             if cmd is not None:
@@ -579,6 +594,8 @@ class HostLoop:
                     missed = (done - next_t) // period + 1
                     self.stats.deadline_misses += int(missed)
                     next_t += int(missed) * period
+                    self.event("deadline", f"frame deadline missed by {(done - next_t + int(missed) * period) / 1000:.0f} us; "
+                                           f"{int(missed)} frame(s) skipped", missed=int(missed))
                 if on_frame is not None and on_frame(self) is False:
                     jitter = jitter[: k + 1]
                     break

@@ -3,12 +3,14 @@
 Owns: packing (Config -> p, initial x, default u), the derived quantities of a machine (rated
 EMF, flux constant, time constants, critical field resistance, step limits). Runs once per
 run, in Python; nothing here is on the per-frame path. Imports rtmodel.layout and the
-magnetization helpers only (never the step kernel, so packing does not trigger a compile).
+magnetization helpers only at load time (the step kernel only inside Plant.kernel(), so
+packing never triggers a compile).
 """
 
 from __future__ import annotations
 
 import math
+import os
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -44,6 +46,25 @@ class Plant:
     @property
     def dt_s(self) -> float:
         return float(self.p[L.P_DT_S])
+
+    def kernel(self):
+        """The frame kernel for this plant: f(x, p, u, y, n_sub), as rtmodel.kernel.step_frame.
+
+        By default the build specialised for this plant's connection, supply, field supply and
+        load (rtmodel.kernel.kernel_for: faster, compiled on first use for these codes and then
+        cached). DCRIG_KERNEL=generic in the environment selects the generic build instead
+        (one compile for every plant; the test suite uses it to keep its compiles few).
+        Fetch it once per run; only this plant's p (or a copy with the same codes) may be
+        passed to it.
+        """
+        import rtmodel.kernel as K
+
+        if os.environ.get(KERNEL_ENV, "specialised") == "generic":
+            return K.step_frame
+        return K.kernel_for(self.p)
+
+
+KERNEL_ENV = "DCRIG_KERNEL"  # "generic" or "specialised" (the default): see Plant.kernel
 
 
 def _copper(r_ref, temp_c, ref_c):

@@ -233,6 +233,7 @@ def summary_lines(loop: HostLoop, timeline: Timeline, wall_s: float) -> list[str
         lines.append("link: " + link_health(loop))
     trips = [e for e in loop.events if e[1] == "trip"]
     lines.append("controller trips: " + ("; ".join(f"{e[2]} at {e[0]:.3f} s" for e in trips) if trips else "none"))
+    lines.extend(harm_lines(loop))
     return lines
 
 
@@ -253,6 +254,18 @@ def link_health(loop: HostLoop) -> str:
     if st.run_invalid:
         text += f"; RUN INVALID: {st.run_invalid}"
     return text
+def harm_lines(loop: HostLoop) -> list[str]:
+    """The machine-harm checks (host.verdict.harm) on this run's frames: on in every closed-loop
+    run, whatever the controller reported."""
+    from .scenario.run import harm_limits
+    from .verdict import harm_checks
+
+    meta = {"frame_period_s": loop.frame_period_us * 1e-6, "harm": harm_limits(loop.plant)}
+    flagged = [h for h in harm_checks(loop.rows(), REC_COLUMNS, meta) if h.flagged]
+    if not flagged:
+        return ["machine-harm checks: none flagged (commutation limit, overspeed, field loss while "
+                "energised, winding temperature, armature overvoltage, current rise rate)"]
+    return [f"machine-harm checks: {len(flagged)} FLAGGED"] + [f"  HARM {h.check}: {h.text}" for h in flagged]
 
 
 def send_bye(session) -> None:
@@ -262,31 +275,64 @@ def send_bye(session) -> None:
         pass
 
 
-def run_closed_loop(plant, link, *, encoding: str, paced: bool, timeline: Timeline, out_dir,
+def run_closed_loop(plant, link, *, encoding: str, paced: bool, timeline: Timeline, out_dir=None,
                     watchdog_periods: int = 10, on_link_loss: str = "block", handshake_timeout_s: float = 20.0,
                     plot: bool = True, out=None, command_timeout_s: float = 2.0,
-                    peer_timeout_s: float = 5.0, max_error_rate: float | None = 0.01) -> HostLoop:
-    """Handshake on `link`, run the timeline lockstep or paced, print the summary, write files."""
+                    peer_timeout_s: float = 5.0, max_error_rate: float | None = 0.01,
+                    run_dir=None, meta: dict | None = None, extra_configs: dict | None = None,
+                    peer_exit=None) -> HostLoop:
+    """Handshake on `link`, run the timeline lockstep or paced, print the summary, keep the record.
+
+    run_dir: a run folder made by host.record.new_run_dir (the command makes it before the
+    run starts, so a bad folder is refused first); out_dir: a folder asked for, from which a
+    new run folder is made here (out_dir itself, or out_dir-2, -3, ... when taken). Every
+    frame and event goes to run_dir/record.sqlite as the run goes; frames.csv, events.csv and
+    run.png are exported from the record at the end, also after Ctrl-C or a link error.
+    peer_exit: the poll() of a controller process this host started (the demo): its death
+    before the handshake ends the wait at once.
+    """
     out = out if out is not None else sys.stdout  # looked up per call (tests swap sys.stdout)
     from .link import HostSession
     from .loop import HostLoop
+    from .record import new_run_dir
+    from .recording import end_status, export_closed_loop, open_run_record
 
+    if run_dir is None and out_dir is not None:
+        out_dir = Path(out_dir)
+        run_dir = new_run_dir(out_dir.parent, out_dir.name)
     period_us = int(round(plant.derived["frame_period_us"]))
     n_frames = int(timeline.end_s / (period_us * 1e-6)) + 1
-    session = HostSession(link, encoding=encoding, frame_period_us=period_us)
-    loop = HostLoop(plant, session, period_us, watchdog_periods=watchdog_periods, on_link_loss=on_link_loss,
-                    max_error_rate=max_error_rate)
-    peer = session.handshake(timeout_s=handshake_timeout_s)
-    if hasattr(link, "release_peer_hold"):
-        link.release_peer_hold()  # a pty: the controller holds its end now; its death closes the cable
+    recorder = None
+    if run_dir is not None:
+        run_meta = {"run_kind": "closed_loop", "link": str(getattr(link, "url", link)), "encoding": encoding,
+                    "paced": paced, "frame_period_us": period_us, "watchdog_periods": watchdog_periods,
+                    "on_link_loss": on_link_loss,
+                    "timeline": [[st.t_s, st.what, st.value] for st in timeline.steps]}
+        run_meta.update(meta or {})
+        recorder = open_run_record(Path(run_dir), REC_COLUMNS, plant, run_meta, extra_configs)
+    stopped = None
+    try:
+        session = HostSession(link, encoding=encoding, frame_period_us=period_us)
+        loop = HostLoop(plant, session, period_us, watchdog_periods=watchdog_periods, on_link_loss=on_link_loss,
+                        max_error_rate=max_error_rate, recorder=recorder)
+        peer = session.handshake(timeout_s=handshake_timeout_s, peer_exit=peer_exit)
+        if hasattr(link, "release_peer_hold"):
+            link.release_peer_hold()  # a pty: the controller holds its end now; its death closes the cable
+    except BaseException as err:  # no run: the record says why, the error goes on
+        if recorder is not None:
+            recorder.event(0.0, "link", f"no run: {err.__class__.__name__}: {err}")
+            recorder.close(end_status(err))
+        raise
     supply = plant.converter["converter.name"] if plant.converter else "DC source"
     print(f"{plant.machine['machine.name']} on {supply}; controller on {link.url} (protocol "
           f"{peer.protocol_version}, {encoding}); frame {period_us} us = {loop.n_sub} model steps of "
           f"{loop.p[L.P_DT_S] * 1e6:.2f} us; {'paced real time' if paced else 'lockstep'}", file=out)
+    if run_dir is not None:
+        print(f"recording to {run_dir}", file=out)
+    loop.event("link", f"handshake: protocol {peer.protocol_version}, {encoding}, frame {period_us} us")
     loop.hooks.append(timeline)
     status = StatusLine(out)
     t0 = time.perf_counter()
-    stopped = None
     try:
         if paced:
             loop.run_paced(n_frames, on_frame=status)
@@ -301,6 +347,23 @@ def run_closed_loop(plant, link, *, encoding: str, paced: bool, timeline: Timeli
         wall = time.perf_counter() - t0
         status.close()
         send_bye(session)
+        counters = {"frames": loop.stats.frames, "commands": loop.stats.commands,
+                    "missed_commands": loop.stats.missed_commands,
+                    "link_loss_events": loop.stats.link_loss_events,
+                    "deadline_misses": loop.stats.deadline_misses, "wall_s": wall}
+        try:
+            counters.update({f"link_{k}": v for k, v in session.stats().items()})
+        except Exception:  # a half-built session has no stats; the loop's counters still go in
+            pass
+        if recorder is not None:
+            loop.event("counters", "end-of-run counters", **counters)
+            if recorder.dropped:
+                print(f"  warning: the recorder dropped {recorder.dropped} frames (the disk did not keep up)", file=out)
+            try:
+                recorder.close(end_status(stopped))
+            except DcrigError as err:  # the disk failed: say so, still print the summary
+                print(f"error: {err}", file=out)
+                stopped = stopped or err
     print("\nsummary" + (" (run stopped early)" if stopped else ""), file=out)
     for line in summary_lines(loop, timeline, wall):
         print("  " + line, file=out)
@@ -309,9 +372,12 @@ def run_closed_loop(plant, link, *, encoding: str, paced: bool, timeline: Timeli
         print(f"  paced: frame start lateness median {j['median_us']:.0f} us, p99 {j['p99_us']:.0f} us, "
               f"max {j['max_us']:.0f} us; deadline misses {loop.stats.deadline_misses}", file=out)
         print(f"  granted: {', '.join(f'{k} {v}' for k, v in loop.stats.granted.items() if not k.endswith('_before'))}", file=out)
-    if out_dir is not None:
-        files = write_outputs(loop, Path(out_dir), plant.machine["machine.name"] + " - closed loop", plot=plot)
+    if run_dir is not None:
+        files = export_closed_loop(Path(run_dir), plant.machine["machine.name"] + " - closed loop", plot, out)
         print(f"  files: {', '.join(str(f) for f in files.values())}", file=out)
+        if stopped is not None:
+            print(f"  the record keeps every frame up to the stop: {run_dir / 'record.sqlite'} "
+                  f"(status {end_status(stopped).split(':')[0]})", file=out)
     if stopped is not None:
         raise stopped
     return loop

@@ -19,7 +19,7 @@ from pathlib import Path, PurePosixPath
 from host.errors import ConfigError
 
 DATA_DIR = "_configs"  # under the host package
-FOLDERS = ("machines", "converters", "controllers")
+FOLDERS = ("machines", "converters", "controllers", "scenarios", "suites", "campaigns", "records", "replay")
 
 
 def _traversable(rel: str):

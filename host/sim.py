@@ -2,8 +2,9 @@
 
 Owns: the named model inputs a user may drive (with units), step/ramp profiles, and
 `run_offline`, which calls the step kernel once per recorded sample. The host/rtmodel
-boundary is rtmodel.layout (array layout) and rtmodel.kernel.step_frame (one call per sample
-or frame); nothing else of rtmodel is called here.
+boundary is rtmodel.layout (array layout) and the frame kernel from Plant.kernel() (a build of
+rtmodel.kernel.step_frame for the plant's codes; one call per sample or frame); nothing else
+of rtmodel is called here.
 """
 
 from __future__ import annotations
@@ -185,14 +186,35 @@ def apply_profile(u: np.ndarray, u_start: np.ndarray, segments: list[Segment], t
         u[L.U_ALPHA_DEG] = firing.bridge_alpha_deg(v_ref, vdo_V)
 
 
-def run_offline(plant: Plant, t_end_s: float, sample_s: float, segments: list[Segment] = (), x=None):
+def check_segments(plant: Plant, segments) -> None:
+    """Input profiles the plant cannot take, refused before anything runs."""
+    if plant.converter is None and any(INPUTS[s_.name][0] < 0 for s_ in segments):
+        raise ConfigError(f"{BRIDGE_VOLTAGE_REF}: needs a bridge converter (--converter); "
+                          "a DC source takes terminal_voltage_V")
+
+
+# at most this many model steps in one kernel call: about 0.05-0.1 s of wall time at the
+# kernel's 100-400 ns per step, so Ctrl-C (SIGINT, handled between calls) is honoured quickly
+# and rows are handed to the recorder as they are computed, even with a huge --sample
+MAX_STEPS_PER_CALL = 250_000
+FLUSH_WALL_S = 0.05  # hand computed rows to on_rows at least this often (wall time)
+
+
+def run_offline(plant: Plant, t_end_s: float, sample_s: float, segments: list[Segment] = (), x=None,
+                on_rows=None, max_steps_per_call: int = MAX_STEPS_PER_CALL):
     """Run the model from x (or the plant's initial state) and record one output row per sample.
 
     Returns (t_s, Y) with Y of shape (n_samples + 1, N_OUTPUT); row 0 is the initial state.
-    One kernel call per sample; inputs are held over a sample (sample_s >= one step).
+    Inputs are held over a sample (sample_s >= one step). A sample of more than
+    max_steps_per_call steps is computed in several kernel calls (the row is the output of the
+    last one: frame means and peaks, such as the mean terminal voltage, then cover that last
+    call only). on_rows(Y[a:b]) gets every computed row in order, at least every
+    FLUSH_WALL_S of wall time, and once more with the rows done so far when the run is
+    interrupted (KeyboardInterrupt goes on after it).
     """
-    from rtmodel.kernel import step_frame
+    import time
 
+    step_frame = plant.kernel()
     dt = plant.dt_s
     n_sub = max(1, int(round(sample_s / dt)))
     n = int(math.ceil(t_end_s / (n_sub * dt) - 1e-9))
@@ -201,20 +223,45 @@ def run_offline(plant: Plant, t_end_s: float, sample_s: float, segments: list[Se
     u = u_start.copy()
     Y = np.zeros((n + 1, L.N_OUTPUT))
     segments = list(segments)
+    check_segments(plant, segments)
     vdo = 0.0
     if plant.converter is not None:
         vdo = firing.vdo(float(plant.p[L.P_MAINS_VLL_V]))
-    elif any(INPUTS[s_.name][0] < 0 for s_ in segments):
-        raise ConfigError(f"{BRIDGE_VOLTAGE_REF}: needs a bridge converter (--converter); "
-                          "a DC source takes terminal_voltage_V")
+    calls = [max_steps_per_call] * (n_sub // max_steps_per_call)
+    if n_sub % max_steps_per_call:
+        calls.append(n_sub % max_steps_per_call)
     apply_profile(u, u_start, segments, 0.0, vdo)
     step_frame(x, plant.p, u, Y[0], 0)
-    for k in range(n):
-        apply_profile(u, u_start, segments, x[L.X_TIME_S], vdo)
-        status = step_frame(x, plant.p, u, Y[k + 1], n_sub)
-        if status & L.ST_NONFINITE:
-            Y = Y[: k + 2]
-            break
+    done = 1  # rows computed
+    flushed = 0  # rows handed to on_rows
+    if on_rows is not None:  # the initial state at once: a first sample may take long
+        on_rows(Y[0:1])
+        flushed = 1
+    clock = time.perf_counter
+    last_flush = clock()
+    try:
+        for k in range(n):
+            apply_profile(u, u_start, segments, x[L.X_TIME_S], vdo)
+            status = 0
+            for steps in calls:
+                status = step_frame(x, plant.p, u, Y[k + 1], steps)
+                if status & L.ST_NONFINITE:
+                    break
+            done = k + 2
+            if status & L.ST_NONFINITE:
+                Y = Y[:done]
+                break
+            if on_rows is not None and (done - flushed >= 8192 or clock() - last_flush >= FLUSH_WALL_S):
+                a, flushed = flushed, done  # moved first: an interrupt inside on_rows never repeats rows
+                on_rows(Y[a:done])
+                last_flush = clock()
+    except KeyboardInterrupt:
+        if on_rows is not None and done > flushed:
+            a, flushed = flushed, done
+            on_rows(Y[a:done])
+        raise
+    if on_rows is not None and done > flushed:
+        on_rows(Y[flushed:done])
     return Y[:, L.Y_TIME_S].copy(), Y
 
 

@@ -150,9 +150,11 @@ def curve_emf(p, i):
 
     Returns (E_V, dE_di_V_per_A). Monotone in i for every i; see the module docstring.
     """
+    # one lookup for both signs: each inlined copy of the lookup costs compile time, and the
+    # kernel inlines this function at every machine evaluation
+    e, de = _curve_pos(p, abs(i))
     if i >= 0.0:
-        return _curve_pos(p, i)
-    e, de = _curve_pos(p, -i)
+        return e, de
     e_res = p[P_MAG_E0]
     i1 = p[P_MAG_I0 + 1]
     fade = 1.0 + i / i1

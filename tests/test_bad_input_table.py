@@ -8,7 +8,8 @@ in-process and checks:
   * no model work was started: the kernel warm-up, the offline run, the closed loop and the
     controller's handshake are replaced by tripwires that fail the test when called;
   * nothing in the working folder was written or changed (a previous run's files included).
-Scenario and suite files join the table when they exist (issue 8).
+Scenario and suite files (issue 8) are in the table too: a scenario or suite refused before
+the banner, before any run folder is made and before any scenario runs.
 """
 
 from __future__ import annotations
@@ -26,6 +27,7 @@ F3 = str(ROOT / "configs/machines/kestrel_f3_stand.toml")
 FAN = str(ROOT / "configs/machines/kestrel_shunt_fan.toml")
 DUAL = str(ROOT / "configs/converters/kestrel_f3_dual.toml")
 S = str(ROOT / "configs/controllers/kestrel_f3_dual.toml")
+SCN = ROOT / "configs/scenarios/f3_phase_loss_process.toml"
 NINES = "9" * 400
 DEEP = "[" * 5000 + "]" * 5000
 
@@ -73,6 +75,46 @@ def _files(tmp: Path) -> dict[str, str]:
     f["a_file"] = str(tmp / "a_file")
     (tmp / "folder.csv").mkdir()
     f["folder_csv"] = str(tmp / "folder.csv")
+    # scenario and suite files: copies of a shipped scenario with its relative paths made
+    # absolute (they live in tmp now), then one thing broken in each
+    scn = SCN.read_text(encoding="utf-8").replace('"../', f'"{ROOT}/configs/')
+    for name, old, new in (
+        ("scn_unknown_key", "duration_s = 1.2", "duration_sec = 1.2"),
+        ("scn_duration_negative", "duration_s = 1.2", "duration_s = -1.2"),
+        ("scn_machine_missing", "machines/kestrel_f3_stand.toml", "machines/kestrel_f3_nosuch.toml"),
+        ("scn_unknown_action", 'action = "load_step"', 'action = "load_jump"'),
+        ("scn_fault_without_phase", 'phase = "b"', ""),
+        ("scn_speed_nan", "speed_rpm = 400.0", "speed_rpm = nan"),
+        ("scn_expect_unknown_kind", 'kind = "trip"', 'kind = "trips"'),
+    ):
+        assert old in scn, old
+        (tmp / f"{name}.toml").write_text(scn.replace(old, new, 1), encoding="utf-8")
+        f[name] = str(tmp / f"{name}.toml")
+    (tmp / "scn_not_utf8.toml").write_bytes(scn.encode().replace(b"Kestrel", b"Kestr\xe9l", 1))
+    f["scn_not_utf8"] = str(tmp / "scn_not_utf8.toml")
+    (tmp / "scn_deep.toml").write_text(scn + f"\n[extra]\nx = {DEEP}\n", encoding="utf-8")
+    f["scn_deep"] = str(tmp / "scn_deep.toml")
+    good_scn = tmp / "good_scenario.toml"
+    good_scn.write_text(scn, encoding="utf-8")
+    suite = f'[suite]\nname = "bad_suite"\n\n[[run]]\nscenario = "{good_scn}"\n'
+    for name, old, new in (
+        ("suite_unknown_key", 'name = "bad_suite"', 'nme = "bad_suite"'),
+        ("suite_scenario_missing", str(good_scn), str(tmp / "nosuch_scenario.toml")),
+        ("suite_bad_scenario_inside", str(good_scn), f["scn_duration_negative"]),
+        ("suite_must_fail_text", f'scenario = "{good_scn}"', f'scenario = "{good_scn}"\nmust_fail = "yes"'),
+        ("suite_baseline_negative", "\n[[run]]", "\n[baseline]\nms = -3.0\n\n[[run]]"),
+        ("suite_no_runs", f'\n[[run]]\nscenario = "{good_scn}"\n', "\n"),
+        ("suite_same_scenario_twice", "\n[[run]]", f'\n[[run]]\nscenario = "{good_scn}"\n[[run]]'),
+    ):
+        assert old in suite, old
+        (tmp / f"{name}.toml").write_text(suite.replace(old, new, 1), encoding="utf-8")
+        f[name] = str(tmp / f"{name}.toml")
+    (tmp / "suite_not_utf8.toml").write_bytes(b"# \xff\n" + suite.encode())
+    f["suite_not_utf8"] = str(tmp / "suite_not_utf8.toml")
+    (tmp / "suite_deep.toml").write_text(suite + f"\n[x]\ny = {DEEP}\n", encoding="utf-8")
+    f["suite_deep"] = str(tmp / "suite_deep.toml")
+    (tmp / "good_suite.toml").write_text(suite, encoding="utf-8")
+    f["good_suite"] = str(tmp / "good_suite.toml")
     prev = tmp / "previous-run"
     prev.mkdir()
     (prev / "frames.csv").write_text("time_s\n0\n")
@@ -162,6 +204,40 @@ CASES = [
     Case("serve_out_is_file", SERVE + ["--out", "{a_file}"], ("--out", "a_file")),
     Case("serve_max_error_rate_nan", SERVE + ["--max-error-rate", "nan"], ("--max-error-rate", "nan")),
     Case("serve_peer_timeout_zero", SERVE + ["--peer-timeout", "0"], ("--peer-timeout",)),
+    # --- scenario files (docs/scenarios.md)
+    Case("scenario_unknown_key", ["scenario", "{scn_unknown_key}", "--out", "runs"],
+         ("scn_unknown_key.toml", "scenario.duration_sec", "unknown key", "did you mean 'scenario.duration_s'")),
+    Case("scenario_duration_negative", ["scenario", "{scn_duration_negative}", "--out", "runs"],
+         ("scn_duration_negative.toml", "scenario.duration_s", "(0, 600]", "-1.2")),
+    Case("scenario_machine_missing", ["scenario", "{scn_machine_missing}", "--out", "runs"],
+         ("scn_machine_missing.toml", "plant.machine", "file not found", "kestrel_f3_nosuch.toml")),
+    Case("scenario_unknown_action", ["scenario", "{scn_unknown_action}", "--out", "runs"],
+         ("scn_unknown_action.toml", "timeline[0].action", "load_jump")),
+    Case("scenario_fault_without_phase", ["scenario", "{scn_fault_without_phase}", "--out", "runs"],
+         ("scn_fault_without_phase.toml", "phase", "required for fault 'phase_loss'")),
+    Case("scenario_speed_nan", ["scenario", "{scn_speed_nan}", "--out", "runs"],
+         ("scn_speed_nan.toml", "start.speed_rpm", "finite number", "nan")),
+    Case("scenario_expect_unknown_kind", ["scenario", "{scn_expect_unknown_kind}", "--out", "runs"],
+         ("scn_expect_unknown_kind.toml", "expect[0].kind", "trips")),
+    Case("scenario_not_utf8", ["scenario", "{scn_not_utf8}", "--out", "runs"], ("scn_not_utf8.toml", "UTF-8", "0xe9")),
+    Case("scenario_deep_nesting", ["scenario", "{scn_deep}", "--out", "runs"], ("scn_deep.toml", "nested too deeply")),
+    # --- suite files (docs/scenarios.md)
+    Case("suite_unknown_key", ["suite", "{suite_unknown_key}", "--out", "s"],
+         ("suite_unknown_key.toml", "suite.nme", "unknown key")),
+    Case("suite_scenario_missing", ["suite", "{suite_scenario_missing}", "--out", "s"],
+         ("suite_scenario_missing.toml", "run[0].scenario", "file not found", "nosuch_scenario.toml")),
+    Case("suite_bad_scenario_inside", ["suite", "{suite_bad_scenario_inside}", "--out", "s"],
+         ("scn_duration_negative.toml", "scenario.duration_s", "(0, 600]")),
+    Case("suite_must_fail_text", ["suite", "{suite_must_fail_text}", "--out", "s"],
+         ("suite_must_fail_text.toml", "run[0].must_fail", "true or false", "'yes'")),
+    Case("suite_baseline_negative", ["suite", "{suite_baseline_negative}", "--out", "s"],
+         ("suite_baseline_negative.toml", "baseline.ms", ">= 0", "-3.0")),
+    Case("suite_no_runs", ["suite", "{suite_no_runs}", "--out", "s"], ("suite_no_runs.toml", "run", "at least one")),
+    Case("suite_same_scenario_twice", ["suite", "{suite_same_scenario_twice}", "--out", "s"],
+         ("suite_same_scenario_twice.toml", "run[1].scenario", "already run[0]")),
+    Case("suite_not_utf8", ["suite", "{suite_not_utf8}", "--out", "s"], ("suite_not_utf8.toml", "UTF-8", "0xff")),
+    Case("suite_deep_nesting", ["suite", "{suite_deep}", "--out", "s"], ("suite_deep.toml", "nested too deeply")),
+    Case("suite_jobs_zero", ["suite", "{good_suite}", "--jobs", "0", "--out", "s"], ("--jobs", ">= 1", "0")),
 ]
 
 
@@ -193,7 +269,9 @@ def test_bad_input_is_one_line_exit_2_and_writes_nothing(case, tmp_path, monkeyp
     import host.link.session as session_mod
     import host.loop as loop_mod
     import host.runner as runner_mod
+    import host.scenario.run as scenario_run_mod
     import host.sim as sim_mod
+    import host.suite.run as suite_run_mod
 
     files = _files(tmp_path)
     monkeypatch.chdir(tmp_path)
@@ -202,6 +280,9 @@ def test_bad_input_is_one_line_exit_2_and_writes_nothing(case, tmp_path, monkeyp
     monkeypatch.setattr(runner_mod, "run_closed_loop", _tripwire("the closed loop"))
     monkeypatch.setattr(session_mod.ControllerSession, "handshake", _tripwire("the controller handshake"))
     monkeypatch.setattr(proc_mod, "_loop", _tripwire("the controller loop"))
+    monkeypatch.setattr(scenario_run_mod, "run_scenario", _tripwire("a scenario run"))
+    monkeypatch.setattr(suite_run_mod, "run_one", _tripwire("a scenario run of a suite"))
+    monkeypatch.setattr(suite_run_mod, "run_suite", _tripwire("the suite run"))
     before = _snapshot(tmp_path)
     argv = [a.format(**files) if "{" in a and "[" not in a else a for a in case.argv]
     code = cli.main(argv)

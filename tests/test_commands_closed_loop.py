@@ -49,6 +49,8 @@ def test_demo_runs_start_to_stop(kernel, tmp_path, capsys):
     line = _summary_value(out, "frames ")
     assert "frames without command 0" in line and "link-loss events 0" in line
     assert "controller trips: none" in out
+    # the machine-harm checks run in every closed-loop run, demo included
+    assert "machine-harm checks: " in out
     with (out_dir / "frames.csv").open() as fh:
         rows = list(csv.DictReader(fh))
     speeds = [float(r["speed_rpm"]) for r in rows]
@@ -95,6 +97,7 @@ def test_serve_on_tcp_with_controller_process(kernel, tmp_path):
     assert "end: bye" in ctrl.stdout and "trips: none" in ctrl.stdout, ctrl.stdout
     assert "lockstep" in out
     assert "frames without command 0" in _summary_value(out, "frames ")
+    assert "machine-harm checks: " in out
     assert (tmp_path / "serve" / "frames.csv").exists()
 
 

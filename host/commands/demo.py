@@ -20,8 +20,9 @@ DEFAULT_CONVERTER = "converters/kestrel_f3_dual.toml"
 DEFAULT_CONTROLLER = "controllers/kestrel_f3_dual.toml"
 
 EXAMPLE = """examples:
-  dcrig demo                       # F3 stand motor, lockstep, outputs in ./dcrig-demo/
+  dcrig demo                       # F3 stand motor, lockstep, run folder ./dcrig-demo/ (then dcrig-demo-2, ...)
   dcrig demo --paced --out /tmp/f3 # the same at the wall-clock frame rate
+  dcrig runs show dcrig-demo       # the run's summary, read back from its record
 
 The demo plant's configs (the invented Kestrel Bay mill) ship with dcrig, in
   {where}
@@ -52,7 +53,9 @@ def add_subparser(sub):
     p.add_argument("--encoding", choices=("fixed", "float32"), default="fixed")
     p.add_argument("--paced", action="store_true", help="paced real time instead of lockstep")
     p.add_argument("--load", type=float, default=0.6, metavar="PU", help="load step as a fraction of rated torque")
-    p.add_argument("--out", default="dcrig-demo", metavar="DIR", help="output folder")
+    p.add_argument("--out", default="dcrig-demo", metavar="DIR",
+                   help="run folder: record.sqlite, configs/, frames.csv, events.csv, run.png; when DIR exists "
+                   "the run gets DIR-2, DIR-3, ... (a run folder is never overwritten)")
     p.add_argument("--no-plot", action="store_true")
     p.set_defaults(func=_do_demo)
 
@@ -62,6 +65,7 @@ def _do_demo(args):
     from ..link import VirtualCable
     from ..loop import warm_kernel
     from ..outputs import check_output_dir
+    from ..record.rundir import discard_if_empty, new_run_dir
     from ..runner import default_timeline, run_closed_loop
     from . import check_load_pu, load_plant
 
@@ -74,33 +78,41 @@ def _do_demo(args):
     args.converter = args.converter or str(shipped_config(DEFAULT_CONVERTER))
     args.settings = args.settings or str(shipped_config(DEFAULT_CONTROLLER))
     plant = load_plant(args)
-    load_settings(args.settings)  # validate before spawning anything
+    settings = load_settings(args.settings)  # validate before spawning anything
     timeline = default_timeline(plant, args.load)
-    print(SAFETY + "\n")
-    print("loading the model kernel (the first run on a machine compiles it: 30-60 s) ...", flush=True)
-    took = warm_kernel(plant)
-    if took > 2.0:
-        print(f"compiled in {took:.0f} s; later runs load it from the cache")
-    with VirtualCable() as cable:
-        env = dict(os.environ)
-        env["PYTHONPATH"] = str(CODE_ROOT) + os.pathsep + env.get("PYTHONPATH", "")
-        proc = subprocess.Popen(
-            [sys.executable, "-m", "host.cli", "controller", "--link", cable.slave_path,
-             "--settings", args.settings, "--quiet", "--idle-timeout", "10", "--handshake-timeout", "30"],
-            env=env,
-            # its own session: a Ctrl-C reaches the host only, which keeps what it recorded and
-            # says bye; the controller then ends on the bye (or on the closed cable)
-            start_new_session=True,
-        )
-        try:
-            loop = run_closed_loop(plant, cable.host_link(hold_far_end=True), encoding=args.encoding, paced=args.paced,
-                                   timeline=timeline, out_dir=args.out, plot=not args.no_plot)
-        finally:
+    out = Path(args.out)
+    run_dir = new_run_dir(out.parent, out.name)  # before the compile: a bad folder is refused first
+    try:
+        print(SAFETY + "\n")
+        print("loading the model kernel (the first run on a machine compiles it: 30-60 s) ...", flush=True)
+        took = warm_kernel(plant)
+        if took > 2.0:
+            print(f"compiled in {took:.0f} s; later runs load it from the cache")
+        with VirtualCable() as cable:
+            env = dict(os.environ)
+            env["PYTHONPATH"] = str(CODE_ROOT) + os.pathsep + env.get("PYTHONPATH", "")
+            proc = subprocess.Popen(
+                [sys.executable, "-m", "host.cli", "controller", "--link", cable.slave_path,
+                 "--settings", args.settings, "--quiet", "--idle-timeout", "10", "--handshake-timeout", "30"],
+                env=env,
+                # its own session: a Ctrl-C at the terminal reaches the host only, which stops the
+                # run, keeps the record and says bye; the controller then ends on the bye (or on
+                # the closed cable) and never prints an interrupt of its own
+                start_new_session=True,
+            )
             try:
-                proc.wait(timeout=10)
-            except subprocess.TimeoutExpired:
-                proc.kill()
-                proc.wait()
+                loop = run_closed_loop(plant, cable.host_link(hold_far_end=True), encoding=args.encoding, paced=args.paced,
+                                       timeline=timeline, run_dir=run_dir, plot=not args.no_plot,
+                                       meta={"run_name": "demo", "controller": "emulated (separate process)"},
+                                       extra_configs={"controller": settings}, peer_exit=proc.poll)
+            finally:
+                try:
+                    proc.wait(timeout=10)
+                except subprocess.TimeoutExpired:
+                    proc.kill()
+                    proc.wait()
+    finally:
+        discard_if_empty(run_dir)
     if loop.stats.frames == 0:
         raise LinkError("demo: the controller answered no command frame")
     print("\nThis was a model: it proves the controller's logic, not its wiring, sensors or the real")

@@ -33,7 +33,9 @@ def add_subparser(sub):
     p.add_argument("--watchdog", type=int, default=10, metavar="N", help="frames without a valid command before a link-loss event")
     p.add_argument("--on-link-loss", choices=("block", "hold"), default="block", help="what the host does on link loss")
     p.add_argument("--load", type=float, default=0.6, metavar="PU", help="load step as a fraction of rated torque")
-    p.add_argument("--out", default="dcrig-serve", metavar="DIR")
+    p.add_argument("--out", default="dcrig-serve", metavar="DIR",
+                   help="run folder: record.sqlite, configs/, frames.csv, events.csv, run.png; when DIR exists "
+                   "the run gets DIR-2, DIR-3, ... (a run folder is never overwritten)")
     p.add_argument("--connect-timeout", type=float, default=60.0, metavar="S",
                    help="listening address or pty://: wait this long for the controller to connect "
                    "(pty://: to send its HELLO); default 60 s")
@@ -53,8 +55,11 @@ WATCHDOG_MAX_PERIODS = 10000
 def _do_serve(args):
     from ..errors import ConfigError, LinkTimeout
     from ..link import open_link
+    from pathlib import Path
+
     from ..loop import warm_kernel
     from ..outputs import check_output_dir
+    from ..record.rundir import discard_if_empty, new_run_dir
     from ..runner import default_timeline, run_closed_loop
     from . import check_load_pu, check_seconds, load_plant
 
@@ -73,24 +78,30 @@ def _do_serve(args):
     timeline = default_timeline(plant, args.load)
     # the link before the kernel: a missing port is said at once, not after a minute's compile
     with open_link(args.link, baud=args.baud, parity=args.parity) as link:
-        print(SAFETY + "\n")
-        if getattr(link, "latency_timer_ms", None) is not None:
-            print(f"USB-serial latency timer: {link.latency_timer_ms} ms")
-        handshake_s = args.handshake_timeout
-        peer_path = getattr(link, "peer_path", None)
-        if peer_path:
-            print(f"virtual cable: point the controller at {peer_path}  (e.g. dcrig controller --link "
-                  f"{peer_path} --settings SETTINGS.toml); waiting up to {args.connect_timeout:g} s for its HELLO",
-                  flush=True)
-            handshake_s = args.connect_timeout
-        warm_kernel(plant)  # compile before the controller's handshake and before any deadline
-        if hasattr(link, "wait_connected"):
-            print(f"waiting up to {args.connect_timeout:g} s for the controller to connect on {link.url} ...",
-                  flush=True)
-            if not link.wait_connected(args.connect_timeout):
-                raise LinkTimeout(f"link '{link.url}': no controller connected within {args.connect_timeout:g} s")
-        run_closed_loop(plant, link, encoding=args.encoding, paced=not args.lockstep, timeline=timeline,
-                        out_dir=args.out, watchdog_periods=args.watchdog, on_link_loss=args.on_link_loss,
-                        handshake_timeout_s=handshake_s, peer_timeout_s=args.peer_timeout,
-                        max_error_rate=args.max_error_rate)
+        out = Path(args.out)
+        run_dir = new_run_dir(out.parent, out.name)  # before the compile: a bad folder is refused first
+        try:
+            print(SAFETY + "\n")
+            if getattr(link, "latency_timer_ms", None) is not None:
+                print(f"USB-serial latency timer: {link.latency_timer_ms} ms")
+            handshake_s = args.handshake_timeout
+            peer_path = getattr(link, "peer_path", None)
+            if peer_path:
+                print(f"virtual cable: point the controller at {peer_path}  (e.g. dcrig controller --link "
+                      f"{peer_path} --settings SETTINGS.toml); waiting up to {args.connect_timeout:g} s for its HELLO",
+                      flush=True)
+                handshake_s = args.connect_timeout
+            warm_kernel(plant)  # compile before the controller's handshake and before any deadline
+            if hasattr(link, "wait_connected"):
+                print(f"waiting up to {args.connect_timeout:g} s for the controller to connect on {link.url} ...",
+                      flush=True)
+                if not link.wait_connected(args.connect_timeout):
+                    raise LinkTimeout(f"link '{link.url}': no controller connected within {args.connect_timeout:g} s")
+            run_closed_loop(plant, link, encoding=args.encoding, paced=not args.lockstep, timeline=timeline,
+                            run_dir=run_dir, watchdog_periods=args.watchdog, on_link_loss=args.on_link_loss,
+                            handshake_timeout_s=handshake_s, peer_timeout_s=args.peer_timeout,
+                            max_error_rate=args.max_error_rate,
+                            meta={"run_name": "serve", "controller": f"on {args.link}"})
+        finally:
+            discard_if_empty(run_dir)
     return 0

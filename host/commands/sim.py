@@ -7,6 +7,7 @@ from __future__ import annotations
 import argparse
 import math
 import sys
+from pathlib import Path
 
 import numpy as np
 
@@ -21,6 +22,7 @@ EXAMPLE = """examples:
       --change load_torque_Nm@2.5=6000 --out f3.csv --plot f3.png
   dcrig sim configs/machines/kestrel_f3_stand.toml --converter configs/converters/kestrel_f3_bridge.toml \\
       --t-end 3 --set-input firing_angle_deg=150 --ramp firing_angle_deg@0.2:2.5=150:20 --out ramp.csv
+  dcrig runs show f3-run            # the record of the first example (every output, every sample)
 
 inputs (NAME for --change/--ramp/--set-input): see `host/sim.py` INPUTS; units are in the names.
 """
@@ -45,14 +47,22 @@ def add_subparser(sub):
     p.add_argument("--from-steady", action="store_true",
                    help="start running in steady state (field up, at the speed where the motor meets its load on the DC "
                    "source) instead of from rest")
-    p.add_argument("--out", required=True, metavar="FILE.csv", help="CSV output")
+    p.add_argument("--out", required=True, metavar="FILE.csv",
+                   help="CSV output, exported from the run's record (also after Ctrl-C: the rows computed so far)")
+    p.add_argument("--run-dir", metavar="DIR",
+                   help="run folder for the record (record.sqlite, configs/); default FILE-run beside --out; "
+                   "when it exists the run gets DIR-2, DIR-3, ... (never overwritten)")
     p.add_argument("--plot", metavar="FILE.png", help="PNG plot")
     p.set_defaults(func=_do_sim)
 
 
 def _do_sim(args):
     from ..outputs import check_output_file
-    from ..sim import check_inputs, overspeed_limit_rpm, parse_change, parse_ramp, plot, run_offline, write_csv
+    from ..record import RECORD_FILE, new_run_dir, open_record
+    from ..record.export import export_frames_csv
+    from ..recording import end_status, open_run_record
+    from ..sim import (CSV_COLUMNS, check_inputs, check_segments, overspeed_limit_rpm, parse_change, parse_ramp, plot,
+                       run_offline)
     from . import load_plant
 
     if not (args.t_end > 0 and math.isfinite(args.t_end)):
@@ -68,6 +78,7 @@ def _do_sim(args):
         raise ConfigError(f"--sample: must be a finite number of seconds > 0, got {args.sample!r}")
     if args.sample is not None and args.sample > args.t_end:
         raise ConfigError(f"--sample: must not exceed --t-end ({args.t_end:g} s), got {args.sample!r}")
+    out = Path(args.out)
     plant = load_plant(args)
     segs = []
     where = {}
@@ -78,8 +89,6 @@ def _do_sim(args):
         segs.append(parse_change(f"{name}@0={val}", "--set-input"))
         where[name] = "--set-input"
     if args.old_step:
-        import sys
-
         print("note: --step is renamed to --change; the old name goes in the next release", file=sys.stderr)
     for text, option in [(s, "--change") for s in args.change] + [(s, "--step") for s in args.old_step]:
         segs.append(parse_change(text, option))
@@ -96,29 +105,67 @@ def _do_sim(args):
     n = args.t_end / sample
     if n > 5e6:
         raise ConfigError(f"--sample: {n:.0f} rows is too many; use a larger --sample")
+    check_segments(plant, segs)
     x0 = None
     if args.from_steady:
         from ..sim import steady_start_state
 
         x0 = steady_start_state(plant)
-    t, Y = run_offline(plant, args.t_end, sample, segs, x=x0)
-    write_csv(args.out, Y)
-    if args.plot:
-        plot(args.plot, Y, plant.machine["machine.name"])
+    if args.run_dir:
+        rd_path = Path(args.run_dir)
+        run_dir = new_run_dir(rd_path.parent, rd_path.name, option="--run-dir")
+    else:
+        run_dir = new_run_dir(out.parent, out.stem + "-run", option="--out")
+    # the files this run will write: a stale copy from an earlier run must not pass for this one
+    for stale in (out, Path(args.plot) if args.plot else None):
+        if stale is not None and stale.is_file():
+            stale.unlink()
+    columns = [L.OUTPUT_COLUMNS[i] for i in range(L.N_OUTPUT)]
+    meta = {"run_kind": "sim", "run_name": "sim", "t_end_s": args.t_end, "sample_s": sample,
+            "inputs": [[sg.name, sg.t0_s, sg.t1_s, sg.v0, sg.v1] for sg in segs], "csv": str(out)}
+    rec = open_run_record(run_dir, columns, plant, meta, lossless=True)  # offline: wait for the disk, drop nothing
+    for sg in segs:
+        text = (f"{sg.name} = {sg.v1:g}" if sg.t1_s == sg.t0_s else
+                f"{sg.name} ramp {sg.v0:g} -> {sg.v1:g} until {sg.t1_s:g} s")
+        rec.event(sg.t0_s, "input", text, name=sg.name, t0_s=sg.t0_s, t1_s=sg.t1_s, v0=sg.v0, v1=sg.v1)
+    csv_cols = [L.OUTPUT_COLUMNS[c] for c in CSV_COLUMNS]
+    try:
+        t, Y = run_offline(plant, args.t_end, sample, segs, x=x0, on_rows=rec.frame_block)
+    except KeyboardInterrupt as err:
+        kept = rec.rows_recorded
+        rec.event(0.0, "host", "run stopped early: interrupted")
+        rec.close(end_status(err))
+        with open_record(run_dir) as rd:
+            rows = rd.frames()
+            export_frames_csv(rd, out, columns=csv_cols)
+        t_last = rows[-1, 0] if len(rows) else 0.0
+        print(f"interrupted at {t_last:.3f} s of {args.t_end:g} s: kept {kept} rows -> {out}; "
+              f"record {run_dir / RECORD_FILE} (status stopped)", flush=True)
+        raise
+    except BaseException as err:
+        rec.close(end_status(err))
+        raise
     status = 0
     for s in Y[:, L.Y_STATUS].astype(int):
         status |= s
-    last = Y[-1]
-    print(f"{plant.machine['machine.name']}: {t[-1]:.3f} s simulated, {len(t)} rows -> {args.out}"
-          + (f", plot -> {args.plot}" if args.plot else ""))
-    print(f"  end: speed {last[L.Y_SPEED_RPM]:.1f} r/min, armature {last[L.Y_IA_A]:.1f} A, "
-          f"field {last[L.Y_IF_A]:.2f} A, EMF {last[L.Y_EMF_V]:.1f} V, terminal {last[L.Y_VT_MEAN_V]:.1f} V")
-    print(f"  peaks: |ia| {np.max(np.abs(Y[:, L.Y_IA_PEAK_A])):.0f} A, speed {np.max(np.abs(Y[:, L.Y_SPEED_RPM])):.0f} r/min")
     flags = [name for bit, name in L.ST_NAMES.items() if status & bit]
     n_limit = overspeed_limit_rpm(plant)
     over = np.nonzero(np.abs(Y[:, L.Y_SPEED_RPM]) > n_limit)[0]
     if len(over):
         flags.append("overspeed")
+    if flags:
+        rec.event(float(t[-1]), "model", "model flags seen: " + ", ".join(flags), flags=flags)
+    rec.close("error: nonfinite_state" if status & L.ST_NONFINITE else "complete")
+    with open_record(run_dir) as rd:
+        export_frames_csv(rd, out, columns=csv_cols)
+    if args.plot:
+        plot(args.plot, Y, plant.machine["machine.name"])
+    last = Y[-1]
+    print(f"{plant.machine['machine.name']}: {t[-1]:.3f} s simulated, {len(t)} rows -> {args.out}"
+          + (f", plot -> {args.plot}" if args.plot else "") + f"; record {run_dir / RECORD_FILE}")
+    print(f"  end: speed {last[L.Y_SPEED_RPM]:.1f} r/min, armature {last[L.Y_IA_A]:.1f} A, "
+          f"field {last[L.Y_IF_A]:.2f} A, EMF {last[L.Y_EMF_V]:.1f} V, terminal {last[L.Y_VT_MEAN_V]:.1f} V")
+    print(f"  peaks: |ia| {np.max(np.abs(Y[:, L.Y_IA_PEAK_A])):.0f} A, speed {np.max(np.abs(Y[:, L.Y_SPEED_RPM])):.0f} r/min")
     print(f"  model flags seen: {', '.join(flags) if flags else 'none'}")
     if len(over):
         peak = float(np.max(np.abs(Y[:, L.Y_SPEED_RPM])))

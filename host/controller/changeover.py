@@ -20,14 +20,19 @@ PHASE_NAMES = {CONDUCT: "conduct", ZEROING: "zeroing", DEAD: "dead_time"}
 
 
 class Changeover:
-    __slots__ = ("dual", "zero_current_A", "dead_time_s", "hysteresis_A", "bridge", "phase",
-                 "timer_s", "switched")
+    __slots__ = ("dual", "zero_current_A", "dead_time_s", "hysteresis_A", "dwell_s", "bridge", "phase",
+                 "timer_s", "switched", "_want_s")
 
-    def __init__(self, dual: bool, zero_current_A: float, dead_time_s: float, hysteresis_A: float):
+    def __init__(self, dual: bool, zero_current_A: float, dead_time_s: float, hysteresis_A: float,
+                 dwell_s: float = 0.0):
         self.dual = dual
         self.zero_current_A = zero_current_A
         self.dead_time_s = dead_time_s
         self.hysteresis_A = hysteresis_A
+        # the reference must ask for the other bridge this long before a changeover starts: at
+        # light load the speed loop's output wanders around zero, and without a dwell the bridges
+        # trade places every few frames (a limit cycle between rectifier and inversion end)
+        self.dwell_s = dwell_s
         self.reset()
 
     def reset(self) -> None:
@@ -35,6 +40,7 @@ class Changeover:
         self.phase = CONDUCT
         self.timer_s = 0.0
         self.switched = False  # true for the frame a (new) bridge starts: soft start it
+        self._want_s = -1.0  # how long the reference has asked for the other bridge (-1: it does not)
 
     def start(self, i_ref: float) -> None:
         """Pulses are about to be released: pick the bridge for the sign of the reference."""
@@ -59,7 +65,12 @@ class Changeover:
         phase = self.phase
         if phase == CONDUCT:
             if want_other:
-                phase = ZEROING
+                # the first frame that asks counts as time 0 (as the protections' timers do)
+                self._want_s = 0.0 if self._want_s < 0.0 else self._want_s + dt_s
+                if self._want_s + 1e-9 >= self.dwell_s:
+                    phase = ZEROING
+            else:
+                self._want_s = -1.0
         if phase == ZEROING:
             if not want_other and not (-h <= i_ref <= h):
                 phase = CONDUCT  # reference came back before the current reached zero
@@ -77,5 +88,6 @@ class Changeover:
                     self.bridge = BRIDGE_REVERSE if self.bridge == BRIDGE_FORWARD else BRIDGE_FORWARD
                 phase = CONDUCT
                 self.switched = True
+                self._want_s = -1.0
         self.phase = phase
         return phase

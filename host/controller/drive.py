@@ -24,6 +24,7 @@ from host.controller.settings import Settings
 from host.signals import (
     ARMATURE_MODES,
     BRIDGE_BLOCKED,
+    BRIDGE_FORWARD,
     BRIDGE_REVERSE,
     FIELD_MODE_FIRING_ANGLE,
     FIELD_MODE_VOLTAGE,
@@ -33,6 +34,8 @@ from host.signals import (
     Feedback,
     TripReport,
 )
+
+RPM_TO_RAD_S = math.pi / 30.0
 
 # sequence states
 STOPPED = 0  # contactor open, pulses blocked, economy field
@@ -91,6 +94,12 @@ class DriveController:
         self._f_mains = g("drive.mains_frequency_Hz")
         self._use_meas = g("drive.use_measured_mains")
         self._series = g("motor.connection") == "series"
+        # a shunt field across the armature: the controller cannot set it, only judge it
+        self._field_across = g("motor.connection") in ("shunt", "compound")
+        self._v_start = g("voltage_start.enabled")
+        self._v_ramp = g("voltage_start.ramp_V_per_s")
+        self._v_ilim = g("voltage_start.current_limit_A") or g("speed_loop.current_limit_motoring_A")
+        self._v_rated = g("motor.rated_voltage_V")
         self._i_rated = g("motor.rated_current_A")
         self._n_base = g("motor.base_speed_rpm")
         self._n_top = g("motor.top_speed_rpm")
@@ -99,6 +108,8 @@ class DriveController:
         self._kphi_V_per_rpm = (g("motor.rated_voltage_V") - self._ra * self._i_rated) / self._n_base
         self._mag_if = tuple(g("motor.magnetisation_if_pu"))
         self._mag_phi = tuple(g("motor.magnetisation_phi_pu"))
+        self._kt_Nm_per_A = self._kphi_V_per_rpm / RPM_TO_RAD_S  # torque per ampere at rated flux
+        self._j_ff = g("speed_loop.accel_feedforward_kgm2")
         self._tacho_k = g("tacho.volts_per_rpm")
         self._tau_tacho = g("tacho.filter_s")
         self._tau_emf = g("emf.filter_s")
@@ -126,7 +137,7 @@ class DriveController:
         self._if_economy = g("field.economy_fraction") * self._if_rated
         self._af_min = g("field.alpha_min_deg")
         self._af_max = g("field.alpha_max_deg")
-        self._weakening = g("field.weakening") and not self._series
+        self._weakening = g("field.weakening") and not self._series and not self._field_across
         self._emf_set = g("field.emf_setpoint_V")
         self._run_pulse = g("start_stop.run_input") == "pulse"
         self._release_delay = g("start_stop.pulse_release_delay_s")
@@ -170,7 +181,8 @@ class DriveController:
         self._field_pi = PI(g("field.kp_V_per_A"), g("field.ti_s"))
         self._emf_pi = PI(g("field.emf_kp_A_per_V"), g("field.emf_ti_s"))
         self._co = Changeover(self._dual, g("changeover.zero_current_A"),
-                              g("changeover.dead_time_s"), g("changeover.hysteresis_A"))
+                              g("changeover.dead_time_s"), g("changeover.hysteresis_A"),
+                              g("changeover.dwell_s"))
         self.signals = ControllerSignals(self)
         self._dt_cache = (-1.0, 0.0, 0.0, 0.0)
         self._await_run_release = False
@@ -195,6 +207,7 @@ class DriveController:
         self._theta_pu = 0.0
         self._i_ref = 0.0
         self._v_ref = 0.0
+        self._v_cmd = 0.0
         self._alpha_deg = self._a_max
         self._alpha_floor = self._a_max
         self._floor_limited = False
@@ -336,7 +349,7 @@ class DriveController:
                 self._contactor = 0
             else:
                 if not self._field_established:
-                    if self._series or i_f >= self._est_frac * self._if_rated:
+                    if self._series or self._field_across or i_f >= self._est_frac * self._if_rated:
                         self._field_established = True
                     elif self._state_timer_s + 1e-9 >= self._field_timeout:
                         self.trip(TripCode.FIELD_LOSS, i_f, fb.model_time_us)
@@ -388,9 +401,15 @@ class DriveController:
                 lo = -self._n_top if self._reverse else 0.0
                 if ref < lo:
                     ref = lo
+                w_before = self._ramp.out
                 w = self._ramp.step(ref, dt_s, self._accel, self._decel)
             else:
+                w_before = self._ramp.out
                 w = self._ramp.step(0.0, dt_s, self._stop_decel, self._stop_decel)
+            # acceleration feedforward: the current that accelerates the inertia at the ramp's
+            # rate, I = J dw/dt / (k phi), so the integrator holds only the load and nothing is
+            # left in it to overshoot with when the ramp ends
+            i_acc = self._j_ff * (w - w_before) / dt_s * RPM_TO_RAD_S / self._kt_Nm_per_A
             if state == STOPPING and w == 0.0 and -self._zero_speed < n < self._zero_speed:
                 # at rest: current to zero, then block pulses, then open the contactor
                 i_ref = 0.0
@@ -423,7 +442,15 @@ class DriveController:
                 # no torque while the bridges change over or a bridge soft-starts: freeze the
                 # speed integrator then, or it winds up and the drive hunts across zero current
                 hold = co.phase != CONDUCT or self._floor_limited
-                i_ref = self._speed_pi.step(w - n, dt_s, lo, hi, 0.0, 1.0 / phi_s, None, hold)
+                if self._dual and co.phase == CONDUCT:
+                    # a reference the active bridge cannot carry gives no torque: once it has
+                    # passed the changeover hysteresis (the changeover dwell is running) the
+                    # integrator stops there; winding it further made the new bridge start with
+                    # a large reference, and the drive hunted from bridge to bridge at light load
+                    i_prev = self._i_ref
+                    h = co.hysteresis_A
+                    hold = hold or (i_prev < -h if co.bridge != BRIDGE_REVERSE else i_prev > h)
+                i_ref = self._speed_pi.step(w - n, dt_s, lo, hi, i_acc / phi_s, 1.0 / phi_s, None, hold)
         else:
             i_ref = 0.0
             self._ramp.reset(0.0)
@@ -492,6 +519,35 @@ class DriveController:
             if phase == DEAD:
                 bridge = BRIDGE_BLOCKED
             self._v_ref = s * v_b
+        if self._v_start and released and state in (RUNNING, STOPPING):
+            # voltage-ramp start: the armature voltage reference, not the speed loop, runs the
+            # machine; the current only holds the ramp back
+            ref = fb.op_speed_ref_rpm if state == RUNNING else 0.0
+            if ref < 0.0:
+                ref = 0.0
+            if ref > self._n_base:
+                ref = self._n_base
+            target = self._v_rated * ref / self._n_base
+            v = self._v_cmd
+            ia_abs = ia if ia >= 0.0 else -ia
+            step = self._v_ramp * dt_s
+            if ia_abs > 1.1 * self._v_ilim:
+                v -= step
+            elif v < target and ia_abs <= self._v_ilim:
+                v = v + step if v + step < target else target
+            elif v > target:
+                v = v - step if v - step > target else target
+            if v < 0.0:
+                v = 0.0
+            self._v_cmd = v
+            bridge = BRIDGE_FORWARD
+            self._i_ref = 0.0
+            alpha = firing.bridge_alpha_deg(v, v_do, self._a_min, a_max)
+            self._v_ref = v
+            if state == STOPPING and v == 0.0 and -self._zero_i < ia < self._zero_i:
+                state = OPENING
+        elif not (released and state in (RUNNING, STOPPING)):
+            self._v_cmd = 0.0
         if state == OPENING or (not released and state != TRIPPED):
             bridge = BRIDGE_BLOCKED
             self._cur_pi.reset()
@@ -502,7 +558,7 @@ class DriveController:
         self._state = state
 
         # ---- field ----------------------------------------------------------------------------
-        if self._series:
+        if self._series or self._field_across:
             self._if_ref = 0.0
             vf = 0.0
         else:
@@ -513,8 +569,11 @@ class DriveController:
                 if self._weakening and released:
                     n_abs = n if n >= 0.0 else -n
                     if_ff = self._if_rated
-                    if n_abs > self._n_base:
-                        # flux for the EMF setpoint at this speed, through the magnetisation curve
+                    if n_abs > 1.0:
+                        # flux for the EMF setpoint at this speed, through the magnetisation curve.
+                        # Continuous in speed: it leaves full field where k*phi*n reaches the setpoint
+                        # (a switch at base speed instead made a step of several amperes for a
+                        # change of 1 r/min, and the field rang around base speed)
                         phi_w = self._emf_set / (self._kphi_V_per_rpm * n_abs)
                         if phi_w < 1.0:
                             if_ff = interp(phi_w, self._mag_phi, self._mag_if) * self._if_rated
@@ -541,7 +600,7 @@ class DriveController:
                 vf = 0.0
         self._vf_ref = vf
         if self._field_mode == FIELD_MODE_FIRING_ANGLE:
-            if self._series or vf <= 0.0:
+            if self._series or self._field_across or vf <= 0.0:
                 field_cmd = self._af_max
             else:
                 field_cmd = firing.half_bridge_alpha_deg(vf, vac, self._af_min, self._af_max)
@@ -577,8 +636,14 @@ class DriveController:
             return self.trip(TripCode.OVERVOLTAGE, va, mt)
         # field loss: only once the field has been established after energising (the start
         # itself is guarded by the establish timeout in the sequencer)
-        fl = (not self._series and self._field_established and state in (CLOSING, RUNNING, STOPPING)
-              and i_f < self._fl_frac * self._if_ref)
+        if self._field_across:
+            # the field the armature voltage should drive through the field circuit
+            va_abs = va if va >= 0.0 else -va
+            fl = (state in (RUNNING, STOPPING) and va_abs > 0.3 * self._v_rated
+                  and i_f < self._fl_frac * self._if_rated * va_abs / self._v_rated)
+        else:
+            fl = (not self._series and self._field_established and state in (CLOSING, RUNNING, STOPPING)
+                  and i_f < self._fl_frac * self._if_ref)
         if self._p_fl.update(fl, dt_s):
             return self.trip(TripCode.FIELD_LOSS, i_f, mt)
         # tacho loss: the EMF estimate as a second speed measurement, while pulses run

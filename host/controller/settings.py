@@ -74,8 +74,11 @@ _k("drive.use_measured_mains", "bool", True, "", None,
 
 # --- motor ------------------------------------------------------------------------------------
 _k("motor.connection", "str", "separate", "", None,
-   "Field connection: separately excited (field loop active) or series (flux follows the "
-   "armature current; field loop and field-loss protection off).", ("separate", "series"))
+   "Field connection: separately excited (field loop active); series (flux follows the "
+   "armature current; field loop and field-loss protection off); shunt or compound (the shunt "
+   "field hangs across the armature: no field loop, pulses released without waiting for "
+   "field current, field loss judged against the field the armature voltage should drive).",
+   ("separate", "series", "shunt", "compound"))
 _k("motor.rated_voltage_V", "float", REQUIRED, "must be > 0", _pos, "Rated armature voltage.")
 _k("motor.rated_current_A", "float", REQUIRED, "must be > 0", _pos, "Rated armature current.")
 _k("motor.base_speed_rpm", "float", REQUIRED, "must be > 0", _pos,
@@ -110,6 +113,10 @@ _k("ramp.stop_decel_rpm_per_s", "float", REQUIRED, "must be > 0", _pos,
 _k("speed_loop.kp_A_per_rpm", "float", REQUIRED, "must be > 0", _pos,
    "Proportional gain at full flux: armature current per rpm of speed error.")
 _k("speed_loop.ti_s", "float", REQUIRED, "must be > 0", _pos, "Integral time.")
+_k("speed_loop.accel_feedforward_kgm2", "float", 0.0, "must be >= 0", _nonneg,
+   "Inertia (motor and load) for the acceleration feedforward: the current J dw/dt / (k phi) the "
+   "ramp needs is added to the speed loop's output, so its integrator holds only the load and "
+   "the speed does not overshoot at the end of a ramp; 0 = off.")
 _k("speed_loop.reverse_allowed", "bool", False, "", None,
    "Accept negative speed references (otherwise clamped at zero).")
 _k("speed_loop.current_limit_motoring_A", "float", REQUIRED, "must be > 0", _pos,
@@ -150,6 +157,9 @@ _k("changeover.dead_time_s", "float", 0.002, "must be in 0..0.1", _between(0, 0.
    "fires.")
 _k("changeover.hysteresis_A", "float", REQUIRED, "must be >= 0", _nonneg,
    "Current reference of the opposite sign that starts a changeover.")
+_k("changeover.dwell_s", "float", 0.0, "must be in 0..1", _between(0, 1),
+   "Time the current reference must ask for the other bridge before the changeover starts "
+   "(zero-current dwell against a changeover limit cycle at light load); 0 = at once.")
 
 # --- emf estimate ------------------------------------------------------------------------------
 _k("emf.filter_s", "float", 0.01, "must be in 0..1", _between(0, 1),
@@ -247,6 +257,34 @@ _k("protection.contactor.timeout_s", "float", 0.5, "must be in 0..10", _between(
 _k("trip.suppress_timeout_s", "float", 0.02, "must be in 0..1", _between(0, 1),
    "After a trip, pulses stay at the inversion end until abs(Ia) < start_stop.zero_current_A or "
    "this time has passed; then pulses block and the contactor opens.")
+
+# --- voltage_start: run by armature voltage (a machine whose field hangs across the armature) ---
+_k("voltage_start.enabled", "bool", False, "", None,
+   "Run on an armature voltage ramp instead of the speed loop: the voltage reference moves at "
+   "ramp_V_per_s to rated voltage x (speed reference / base speed), held back while the "
+   "current is above current_limit_A; stop ramps it to zero. For shunt and compound machines "
+   "(a differential compound started fast can reverse).")
+_k("voltage_start.ramp_V_per_s", "float", 40.0, "must be > 0", _pos,
+   "Rate of the armature voltage reference, up and down.")
+_k("voltage_start.current_limit_A", "float", 0.0, "must be >= 0", _nonneg,
+   "Armature current above which the voltage reference stops rising (and falls back above "
+   "1.1 x this); 0 = speed_loop.current_limit_motoring_A.")
+
+# --- trip_classes: this controller's trip codes by fault class (scenario expectations use the
+# classes, so they never depend on one firmware's numbering) ----------------------------------
+_TRIP_CLASS_DEFAULTS = (("overcurrent", 1), ("overload", 2), ("overspeed", 3), ("field_loss", 4),
+                        ("tacho_loss", 5), ("overvoltage", 6), ("mains_loss", 7), ("mains_sync", 8),
+                        ("contactor", 9))
+
+
+def _codes(v):
+    return all(float(c).is_integer() and 0 < c < 256 for c in v)
+
+
+for _cls, _code in _TRIP_CLASS_DEFAULTS:
+    _k(f"trip_classes.{_cls}", "floats", [float(_code)], "must be whole trip codes in 1..255", _codes,
+       f"Trip codes of this controller that mean a {_cls.replace('_', ' ')} trip (the emulated "
+       f"controller's own code is {_code}); a real controller's profile lists its own.")
 
 KEYS: dict[str, Key] = {k.name: k for k in _KEYS}
 del _KEYS

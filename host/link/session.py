@@ -22,7 +22,7 @@ Public API:
         kick(); expired() -> bool (latches .tripped); reset(); age_ns() -> int; trips: int
     class HostSession(link, *, encoding="fixed", frame_period_us=1000, watchdog_periods=None,
                       clock=time.perf_counter_ns)
-        handshake(timeout_s=5.0, retry_s=0.25) -> Hello          the controller's HELLO
+        handshake(timeout_s=5.0, retry_s=0.25, peer_exit=None) -> Hello   the controller's HELLO
         send_feedback(fb: Feedback) -> int                        seq used (also fb.seq)
         recv_command(timeout_s: float) -> Command | None          None on timeout or after BYE
         send_control(op_or_msg, value=0.0, text="") -> None
@@ -259,8 +259,12 @@ class HostSession(_Session):
         self.peer_restarted = False  # a controller HELLO after its commands: it started over
         self.watchdog = Watchdog(frame_period_us, watchdog_periods, clock) if watchdog_periods else None
 
-    def handshake(self, timeout_s: float = 5.0, retry_s: float = 0.25) -> fr.Hello:
-        """Send HELLO every retry_s until the controller's HELLO arrives; check it agrees."""
+    def handshake(self, timeout_s: float = 5.0, retry_s: float = 0.25, peer_exit=None) -> fr.Hello:
+        """Send HELLO every retry_s until the controller's HELLO arrives; check it agrees.
+
+        peer_exit: for a controller this host started itself, a callable giving its exit status
+        (None while it runs, as subprocess.Popen.poll): a controller that died before its HELLO
+        ends the wait at the next retry instead of after the whole timeout."""
         ours = fr.Hello(fr.ROLE_HOST, self.encoding, self.frame_period_us, sensors=self.sensors)
         frame = fr.pack_hello(ours, (self.tx_seq - 1) & 0xFFFF)
         link = self.link
@@ -272,6 +276,10 @@ class HostSession(_Session):
             if now >= deadline:
                 raise LinkTimeout(f"link '{link.url}': handshake: no HELLO from the controller within {timeout_s} s")
             if now >= next_send:
+                code = peer_exit() if peer_exit is not None else None
+                if code is not None:
+                    raise LinkError(f"link '{link.url}': handshake: the controller process ended "
+                                    f"(exit status {code}) before its HELLO")
                 try:
                     link.send_frame(frame)
                 except LinkTimeout:

@@ -1,0 +1,120 @@
+"""The demo suite end to end, as CI runs it: `dcrig suite configs/suites/kestrel_demo.toml`.
+
+Checks: exit status 0 (every scenario as expected, the mis-set controller's scenario failing),
+the JUnit XML parsed back with an independent reader (junitparser) and counted, the HTML page
+self-contained (its plots embedded), a baseline saved and then an injected regression (a
+field-loss protection 10 ms slower, still inside its expectation) reported with exit 1. Also
+the in-process controller against the process-over-pty path, frame for frame.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+import subprocess
+import sys
+from dataclasses import replace
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+ROOT = Path(__file__).resolve().parents[1]
+SUITE = ROOT / "configs" / "suites" / "kestrel_demo.toml"
+
+
+def _dcrig(*argv, timeout=540):
+    env = dict(os.environ)
+    env["PYTHONPATH"] = str(ROOT)
+    return subprocess.run([sys.executable, "-m", "host.cli", *argv], capture_output=True, text=True,
+                          timeout=timeout, cwd=ROOT, env=env)
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory, kernel):
+    out = tmp_path_factory.mktemp("suite")
+    base = out / "baseline.json"
+    r = _dcrig("suite", str(SUITE), "--jobs", "2", "--out", str(out), "--save-baseline", str(base))
+    return r, out / "kestrel_demo", base
+
+
+def test_demo_suite_passes_with_the_misset_variant_failing(demo_run):
+    from host.suite import load_suite
+
+    r, folder, _ = demo_run
+    assert r.returncode == 0, r.stdout[-3000:] + r.stderr[-3000:]
+    n = len(load_suite(SUITE).runs)
+    assert f"{n}/{n} as expected, 0 regression(s)" in r.stdout
+    assert re.search(r"expected fail\s+f3_overcurrent_misset", r.stdout)
+
+
+def test_junit_xml_parsed_back_and_counted(demo_run):
+    from junitparser import Failure, JUnitXml
+
+    from host.suite import load_suite
+
+    _, folder, _ = demo_run
+    xml = JUnitXml.fromfile(str(folder / "junit.xml"))
+    suites = list(xml)
+    assert len(suites) == 1
+    cases = list(suites[0])
+    names = [c.name for c in cases]
+    assert sorted(names) == sorted(r.scenario.name for r in load_suite(SUITE).runs)
+    failed = [c.name for c in cases if any(isinstance(x, Failure) for x in c.result)]
+    assert failed == []  # the must-fail scenario failed as it must: a passing test case
+    misset = [c for c in cases if c.name == "f3_overcurrent_misset"][0]
+    assert "must fail: the verdict failed" in (misset.system_out or "")
+    assert "FAIL trip_overcurrent_after_armature_short" in misset.system_out
+
+
+def test_html_report_is_one_self_contained_page(demo_run):
+    _, folder, _ = demo_run
+    text = (folder / "report.html").read_text()
+    assert text.count("data:image/png;base64,") >= 20
+    assert "src=\"http" not in text and "<link" not in text  # nothing to fetch
+    assert "f3_overcurrent_misset: expected fail" in text
+    assert "licensed practice" in text
+
+
+def test_injected_regression_is_reported_and_fails_the_suite(demo_run, tmp_path):
+    """A firmware change that makes the field-loss trip 10 ms slower: still within 2200 ms, but a
+    regression against the baseline (tolerance 3 ms)."""
+    _, _, base = demo_run
+    scn_dir = ROOT / "configs" / "scenarios"
+    text = (scn_dir / "f3_field_rheostat.toml").read_text()
+    text = text.replace('settings = "../controllers/kestrel_f3_stand.toml"',
+                        'settings = "../controllers/kestrel_f3_stand.toml"\n'
+                        'set = { "protection.field_loss.delay_s" = 1.01 }')
+    text = text.replace('"../', f'"{scn_dir.parent}/')
+    (tmp_path / "slower.toml").write_text(text)
+    (tmp_path / "suite.toml").write_text('[suite]\nname = "kestrel_demo"\n[[run]]\nscenario = "slower.toml"\n')
+    r = _dcrig("suite", str(tmp_path / "suite.toml"), "--jobs", "1", "--out", str(tmp_path / "o"),
+               "--baseline", str(base), "--no-plot")
+    assert r.returncode == 1, r.stdout + r.stderr
+    line = [x for x in r.stdout.splitlines() if "REGRESSION" in x]
+    assert len(line) == 1 and "f3_field_rheostat: trip_field_loss_after_field_rheostat.ms" in line[0], r.stdout
+    old, new = (float(v) for v in re.search(r"ms ([\d.]+) -> ([\d.]+)", line[0]).groups())
+    assert 6.6 < new - old < 13.4  # 10 ms, whole frames of 3.33 ms
+    assert "1/1 as expected, 1 regression(s)" in r.stdout  # it still passes its expectation
+
+
+def test_inproc_controller_matches_the_process_over_pty(kernel):
+    """Same scenario, the emulated controller in-process and as a separate process on a virtual
+    cable. The link's fixed-point encoding (0.01 A, 0.01 V, 0.001 deg ... docs/protocol.md) rounds
+    what the process sees, so frames agree to a tolerance, not bit for bit."""
+    from host.scenario import load_scenario
+    from host.scenario.run import run_scenario
+
+    scn = load_scenario(ROOT / "configs" / "scenarios" / "f3_phase_loss.toml")
+    a = run_scenario(scn)
+    b = run_scenario(replace(scn, controller_kind="process"))
+    assert a.frames.shape == b.frames.shape
+    col = {c: k for k, c in enumerate(a.columns)}
+    for name, tol in (("speed_rpm", 0.5), ("armature_current_A", 25.0), ("firing_angle_deg", 1.0),
+                      ("field_current_A", 0.05)):
+        d = np.max(np.abs(a.frames[:, col[name]] - b.frames[:, col[name]]))
+        assert d <= tol, (name, d)
+    # the same trip, in the same frame
+    ka = np.argmax(a.frames[:, col["controller_trip"]] > 0)
+    kb = np.argmax(b.frames[:, col["controller_trip"]] > 0)
+    assert ka == kb and a.frames[ka, col["trip_code"]] == b.frames[kb, col["trip_code"]] == 7
