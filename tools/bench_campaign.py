@@ -25,21 +25,8 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 
-def cpu_name() -> str:
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("model name"):
-                return line.split(":", 1)[1].strip()
-    except OSError:
-        pass
-    return platform.processor() or "unknown CPU"
-
-
-def load_avg() -> str:
-    try:
-        return " ".join(f"{v:.2f}" for v in os.getloadavg())
-    except OSError:
-        return "n/a"
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from bench_model import cpu_model as cpu_name, load_avg  # noqa: E402  (shared report helpers, as bench_link)
 
 
 def _noop(i):
