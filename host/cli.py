@@ -11,6 +11,7 @@ import importlib
 import sys
 import textwrap
 
+from . import interrupts
 from .errors import DcrigError
 
 # one module per subcommand under host.commands, each with add_subparser(subparsers)
@@ -72,7 +73,9 @@ def _swap_hidden_alias(argv: list[str]) -> list[str]:
 
 def main(argv: list[str] | None = None) -> int:
     # Ctrl-C may come at any moment, also while the subcommands import numpy, numba and
-    # matplotlib (the first second of every run): one line and 130, never a traceback
+    # matplotlib (the first second of every run): one line and 130, never a traceback.
+    # Until the command runs nothing is open, so it quits at once (host/interrupts.py says why)
+    interrupts.quit_at_once()
     argv = _swap_hidden_alias(list(sys.argv[1:] if argv is None else argv))
     debug = "--debug" in argv
     try:
@@ -81,7 +84,10 @@ def main(argv: list[str] | None = None) -> int:
         if not getattr(args, "func", None):
             parser.print_help()
             return 2
-        return int(args.func(args) or 0)
+        interrupts.raise_normally()
+        code = int(args.func(args) or 0)
+        interrupts.raise_if_lost()
+        return code
     except DcrigError as err:
         if debug:
             raise
@@ -92,6 +98,13 @@ def main(argv: list[str] | None = None) -> int:
             raise
         print("error: interrupted", file=sys.stderr)
         return 130
+    except Exception as err:
+        if debug or not interrupts.caused_by_interrupt(err):
+            raise
+        print("error: interrupted", file=sys.stderr)
+        return 130
+    finally:
+        interrupts.raise_normally()  # main() called in-process (tests) leaves Python's own handler
 
 
 def run() -> None:
@@ -109,6 +122,8 @@ def run() -> None:
     import signal
 
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    if code == 130:
+        interrupts.exit_interrupted(code)  # the interpreter's own exit may turn 130 into -2
     sys.exit(code)
 
 

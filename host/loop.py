@@ -31,6 +31,7 @@ from . import signals as sig
 from .controller import firing  # the bridge voltage laws (pure; shared with the controller)
 from .controller.protection import trip_detail, trip_label  # trip codes printed with their names
 from .errors import ConfigError
+from .interrupts import raise_if_lost
 from .params import Plant
 
 RAD2DEG = 180.0 / math.pi
@@ -87,6 +88,7 @@ def warm_kernel(plant: Plant) -> float:
     step_frame = plant.kernel()
     x, u, y = plant.new_state(), plant.new_inputs(), np.zeros(L.N_OUTPUT)
     step_frame(x, plant.p, u, y, 0)
+    raise_if_lost()  # a Ctrl-C that landed in the compiler's callbacks
     return _time.perf_counter() - t0
 
 

@@ -14,6 +14,7 @@ from pathlib import Path
 from rtmodel import layout as L
 
 from . import signals as sig
+from .interrupts import caused_by_interrupt
 from .record import RECORD_FILE, RunRecorder, open_record, save_configs
 from .record.export import export_events_csv, export_frames_csv
 
@@ -62,7 +63,7 @@ def open_run_record(run_dir: Path, columns, plant, meta: dict, extra_configs: di
 def end_status(err: BaseException | None) -> str:
     if err is None:
         return "complete"
-    if isinstance(err, KeyboardInterrupt):
+    if caused_by_interrupt(err):
         return "stopped"
     return f"error: {err.__class__.__name__}: {err}".rstrip(": ")
 

@@ -20,6 +20,7 @@ from rtmodel import layout as L
 
 from .controller import firing
 from .errors import ConfigError
+from .interrupts import raise_if_lost
 from .params import RPM, Plant
 
 # user-facing input names -> (index, scale from user unit to model unit)
@@ -232,6 +233,7 @@ def run_offline(plant: Plant, t_end_s: float, sample_s: float, segments: list[Se
         calls.append(n_sub % max_steps_per_call)
     apply_profile(u, u_start, segments, 0.0, vdo)
     step_frame(x, plant.p, u, Y[0], 0)
+    raise_if_lost()  # first call compiles: a Ctrl-C that landed in the compiler's callbacks
     done = 1  # rows computed
     flushed = 0  # rows handed to on_rows
     if on_rows is not None:  # the initial state at once: a first sample may take long

@@ -3,6 +3,7 @@
 import argparse
 
 from ..config import load
+from ..interrupts import raise_if_lost
 from ..params import pack
 
 
@@ -31,7 +32,9 @@ def load_plant(args):
         from ..errors import ConfigError
 
         raise ConfigError(f"--set: {c_over[0]}: converter key given but no --converter")
-    return pack(machine, converter)
+    plant = pack(machine, converter)
+    raise_if_lost()  # packing compiles the magnetization curve on a fresh machine
+    return plant
 
 
 def check_load_pu(value: float) -> float:
