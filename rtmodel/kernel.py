@@ -205,6 +205,7 @@ from .layout import (
     Y_TACHO_V,
     Y_TEMP_ARM_C,
     Y_TIME_S,
+    Y_TORQUE_MEAN_NM,
     Y_TORQUE_NM,
     Y_VT_MEAN_V,
     Y_VT_PULSE_MEAN_V,
@@ -624,6 +625,7 @@ def _build(codes):
         fired_mask = 0
         sum_vt = 0.0
         sum_ia = 0.0
+        sum_te = 0.0
         sum_pin = 0.0
         sum_psh = 0.0
         sum_ia2 = 0.0
@@ -1243,6 +1245,7 @@ def _build(codes):
             x[X_VT_V] = vt
             sum_vt += vmean
             sum_ia += ia
+            sum_te += te
             sum_pin += pin
             sum_psh += tl * wn
             if abs(ia) > peak_ia:
@@ -1307,6 +1310,7 @@ def _build(codes):
         y[Y_ENCODER_COUNT] = math.floor(x[X_ANGLE_RAD] / TWO_PI * 4.0 * p[P_ENCODER_PPR])
         y[Y_INPUT_POWER_W] = sum_pin / n
         y[Y_SHAFT_POWER_W] = sum_psh / n
+        y[Y_TORQUE_MEAN_NM] = sum_te / n
         return status
 
     return step_frame

@@ -274,6 +274,7 @@ Y_TACHO_V = _block("Y_", ["TACHO_V"])
 Y_ENCODER_COUNT = _block("Y_", ["ENCODER_COUNT"])  # quadrature counts (4 x PPR per rev)
 Y_INPUT_POWER_W = _block("Y_", ["INPUT_POWER_W"])  # Vt * i_line, frame mean
 Y_SHAFT_POWER_W = _block("Y_", ["SHAFT_POWER_W"])  # load torque * speed, frame mean
+Y_TORQUE_MEAN_NM = _block("Y_", ["TORQUE_MEAN_NM"])  # electromagnetic torque, frame mean
 OUTPUT_NAMES = tuple(_names)
 N_OUTPUT = len(_names)
 del _names
@@ -312,5 +313,6 @@ OUTPUT_COLUMNS = {
     Y_ENCODER_COUNT: "encoder_count",
     Y_INPUT_POWER_W: "input_power_W",
     Y_SHAFT_POWER_W: "shaft_power_W",
+    Y_TORQUE_MEAN_NM: "torque_mean_Nm",
 }
 assert len(OUTPUT_COLUMNS) == N_OUTPUT
