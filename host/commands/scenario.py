@@ -50,8 +50,10 @@ def _do_scenario(args):
 
 def format_row(row) -> str:
     v = row["verdict"]
+    speed = row["model_s"] / max(row["wall_s"], 1e-9)
+    speed_text = f"{speed:.0f}" if speed >= 10.0 else f"{speed:.2g}"  # a first run compiles: 0.13, not 0
     lines = [f"{row['name']}: {'PASS' if row['passed'] else 'FAIL'}  ({row['model_s']:.2f} s model time in "
-             f"{row['wall_s']:.2f} s wall, {row['model_s'] / max(row['wall_s'], 1e-9):.0f} x real time)"]
+             f"{row['wall_s']:.2f} s wall, {speed_text} x real time)"]
     for e in v["expectations"]:
         lines.append(f"  {'PASS' if e['passed'] else 'FAIL'}  {e['name']}: {e['text']}")
     flagged = [h for h in v["harm"] if h["flagged"]]
