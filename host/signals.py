@@ -99,3 +99,5 @@ CTRL_SET_RUN = 4  # host -> controller: operator run input, value 0/1
 CTRL_SET_STOP = 5  # host -> controller: operator stop input, value 0/1
 CTRL_SET_SPEED_REF_RPM = 6  # host -> controller: operator speed reference, value rpm
 CTRL_BYE = 7  # either direction: orderly end of session
+CTRL_SET_FIELD_ECONOMY = 8  # host -> controller: operator field economy input, value 0/1
+CTRL_SET_QUICK_STOP = 9  # host -> controller: operator quick-stop input, value 0/1

@@ -116,6 +116,11 @@ class DriveController:
         self._accel = g("ramp.accel_rpm_per_s")
         self._decel = g("ramp.decel_rpm_per_s")
         self._stop_decel = g("ramp.stop_decel_rpm_per_s")
+        self._quick_decel = g("ramp.quick_stop_decel_rpm_per_s") or self._stop_decel
+        # operator inputs that reach the controller as CONTROL messages, not in every feedback;
+        # they persist through reset() (they are the operator's, not the controller's state)
+        self._economy_on = True
+        self._quick_stop = False
         self._reverse = g("speed_loop.reverse_allowed")
         self._lim_mot = g("speed_loop.current_limit_motoring_A")
         self._lim_reg = g("speed_loop.current_limit_regenerating_A")
@@ -190,6 +195,17 @@ class DriveController:
         self._await_run_release = False  # a fresh controller may start on a held run input
 
     # ------------------------------------------------------------------------------------------
+    def set_field_economy(self, on: bool) -> None:
+        """The operator's field economy input: on (the default), the field falls to
+        field.economy_fraction of rated while stopped; off, it is held at rated (ready for a
+        start without waiting for the field)."""
+        self._economy_on = bool(on)
+
+    def set_quick_stop(self, on: bool) -> None:
+        """The operator's quick-stop input: while on, the drive stops (as op_stop) at
+        ramp.quick_stop_decel_rpm_per_s and does not restart; off releases it."""
+        self._quick_stop = bool(on)
+
     def reset(self) -> None:
         """Clear the latched trip and every internal state. A held run input does not restart
         the drive: after reset the run input must be seen off before a new start."""
@@ -323,6 +339,9 @@ class DriveController:
             run = self._run_latch
         else:
             run = bool(op_run) and not fb.op_stop
+        if self._quick_stop:
+            run = False
+            self._run_latch = False
         self._prev_op_run = op_run
 
         state = self._state
@@ -405,7 +424,8 @@ class DriveController:
                 w = self._ramp.step(ref, dt_s, self._accel, self._decel)
             else:
                 w_before = self._ramp.out
-                w = self._ramp.step(0.0, dt_s, self._stop_decel, self._stop_decel)
+                rate = self._quick_decel if self._quick_stop else self._stop_decel
+                w = self._ramp.step(0.0, dt_s, rate, rate)
             # acceleration feedforward: the current that accelerates the inertia at the ramp's
             # rate, I = J dw/dt / (k phi), so the integrator holds only the load and nothing is
             # left in it to overshoot with when the ramp ends
@@ -583,7 +603,9 @@ class DriveController:
                 else:
                     self._emf_pi.reset()
             else:
-                if_ref = self._if_economy
+                # held at rated while stopped when the operator turned the economy off; after a
+                # trip it falls to the economy level either way
+                if_ref = self._if_rated if (state == STOPPED and not self._economy_on) else self._if_economy
                 self._emf_pi.reset()
             self._if_ref = if_ref
             if if_ref > 0.0:

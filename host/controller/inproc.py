@@ -85,11 +85,17 @@ class InProcSession:
 
     def send_control(self, op_or_msg, value: float = 0.0, text: str = "") -> None:
         op = op_or_msg.op if isinstance(op_or_msg, sig.ControlMessage) else op_or_msg
+        if isinstance(op_or_msg, sig.ControlMessage):
+            value = op_or_msg.value
         if op == sig.CTRL_BYE:
             self.bye = True
         elif op == sig.CTRL_RESET:
             self.controller.reset()
             self._prev_model_us = None
+        elif op == sig.CTRL_SET_FIELD_ECONOMY:
+            self.controller.set_field_economy(bool(value))
+        elif op == sig.CTRL_SET_QUICK_STOP:
+            self.controller.set_quick_stop(bool(value))
 
     def stats(self) -> dict[str, int]:
         return {"frames": self.frames, "crc_errors": 0, "bad_frames": 0, "trips": len(self.trips)}

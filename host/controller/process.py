@@ -105,6 +105,10 @@ def _loop(session, ctrl, idle_timeout_s, max_frames, clock, on_frame) -> dict:
                     overrides.stop = 1 if ev.value else 0
                 elif op == sig.CTRL_SET_SPEED_REF_RPM:
                     overrides.speed_ref_rpm = float(ev.value)
+                elif op == sig.CTRL_SET_FIELD_ECONOMY:
+                    ctrl.set_field_economy(bool(ev.value))
+                elif op == sig.CTRL_SET_QUICK_STOP:
+                    ctrl.set_quick_stop(bool(ev.value))
             elif hasattr(ev, "role"):
                 # a new HELLO: the host restarted its stream; start from a clean controller
                 ctrl.reset()

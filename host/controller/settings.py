@@ -108,6 +108,9 @@ _k("ramp.decel_rpm_per_s", "float", REQUIRED, "must be > 0", _pos,
    "Ramp rate while the reference moves towards zero.")
 _k("ramp.stop_decel_rpm_per_s", "float", REQUIRED, "must be > 0", _pos,
    "Ramp rate to zero after a stop command (op_stop, or run released).")
+_k("ramp.quick_stop_decel_rpm_per_s", "float", 0.0, "must be >= 0", lambda v: v >= 0,
+   "Ramp rate to zero while the operator's quick-stop input is on (CONTROL op 9); 0 = the "
+   "stop ramp.")
 
 # --- speed loop -------------------------------------------------------------------------------
 _k("speed_loop.kp_A_per_rpm", "float", REQUIRED, "must be > 0", _pos,

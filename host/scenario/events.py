@@ -17,6 +17,7 @@ import bisect
 
 from rtmodel import layout as L
 
+from .. import signals as sig
 from .load import Action, Scenario
 
 _PHASE = {"a": 0, "b": 1, "c": 2}
@@ -43,6 +44,11 @@ class LinkGate:
         self._owed += 1
         return self.inner.send_feedback(fb)
 
+    def send_control(self, op_or_msg, value: float = 0.0, text: str = ""):
+        if self.dropped:
+            return None  # lost with everything else while the link is down
+        return self.inner.send_control(op_or_msg, value, text)
+
     def recv_command(self, timeout_s):
         if self.dropped:
             while self._owed:
@@ -64,6 +70,15 @@ class ScenarioDriver:
         self._next = 0
         self._active: list[tuple[Action, float]] = []  # ramps, profiles, faults with an end; start value
         self._rheo_base: float | None = None
+        self._quick_stop_on = False
+
+    @staticmethod
+    def _control(loop, op: int, value: float) -> None:
+        """An operator input that travels as a CONTROL message (docs/protocol.md 6.4); a
+        session without a controller (playback) has nobody to tell."""
+        send = getattr(loop.session, "send_control", None)
+        if send is not None:
+            send(op, value)
 
     def __call__(self, loop) -> None:
         t = float(loop.y[L.Y_TIME_S])
@@ -99,12 +114,21 @@ class ScenarioDriver:
         text = a.action
         if a.action == "run":
             op.run, op.stop = 1, 0
+            if self._quick_stop_on:  # a run after a quick stop releases the quick-stop input
+                self._control(loop, sig.CTRL_SET_QUICK_STOP, 0.0)
+                self._quick_stop_on = False
         elif a.action == "stop":
             op.run, op.stop = 0, 1
         elif a.action == "quick_stop":
-            # the operator panel's quick stop: stop with the reference taken to zero at once
+            # the operator panel's quick stop: stop with the reference taken to zero at once,
+            # and the quick-stop input (CONTROL op 9) for a controller with its own quick ramp
             op.run, op.stop = 0, 1
             op.speed_ref_rpm = 0.0
+            self._control(loop, sig.CTRL_SET_QUICK_STOP, 1.0)
+            self._quick_stop_on = True
+        elif a.action == "field_economy":
+            self._control(loop, sig.CTRL_SET_FIELD_ECONOMY, a.value)
+            text = f"field economy {'on' if a.value else 'off'}"
         elif a.action == "speed_ref":
             op.speed_ref_rpm = a.value
             text = f"speed reference {a.value:g} r/min"

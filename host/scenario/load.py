@@ -41,7 +41,7 @@ FAULTS: dict[str, tuple[str | None, str, Any, str]] = {
 # faults of the bridge's mains and thyristors: need a bridge converter
 BRIDGE_FAULTS = {"mains_dip", "phase_loss", "frequency_step", "misfire", "shorted_thyristor", "blown_fuse"}
 
-ACTIONS = ("run", "stop", "quick_stop", "speed_ref", "speed_ramp", "load_step", "load_ramp",
+ACTIONS = ("run", "stop", "quick_stop", "field_economy", "speed_ref", "speed_ramp", "load_step", "load_ramp",
            "load_profile", "fault")
 EXPECT_KINDS = ("trip", "no_trip", "bounds", "settles", "current_zero", "harm")
 CONTROLLER_KINDS = ("emulated", "process", "c_example", "link")
@@ -416,6 +416,8 @@ def _timeline(r: _Reader, items, base: Path, duration: float, has_bridge: bool) 
         a = Action(at_s=at, action=action, id="")
         if action in ("speed_ref", "load_step"):
             a.value = r.num(it, "value", w)
+        elif action == "field_economy":
+            a.value = r.num(it, "value", w, check=lambda v: v in (0, 1), rule="must be 1 (on) or 0 (off)")
         elif action in ("speed_ramp", "load_ramp"):
             a.value = r.num(it, "value", w)
             a.over_s = r.num(it, "over_s", w, check=lambda v: v > 0, rule="must be > 0")
@@ -445,7 +447,8 @@ def _timeline(r: _Reader, items, base: Path, duration: float, has_bridge: bool) 
                     raise r.fail(w + pname, FAULTS[fault][3], v)
                 a.param = v
         for extra in ("value", "over_s", "file", "fault", "duration_s"):
-            used = {"speed_ref": ("value",), "load_step": ("value",), "speed_ramp": ("value", "over_s"),
+            used = {"speed_ref": ("value",), "load_step": ("value",), "field_economy": ("value",),
+                    "speed_ramp": ("value", "over_s"),
                     "load_ramp": ("value", "over_s"), "load_profile": ("file",),
                     "fault": ("fault", "duration_s")}.get(action, ())
             if extra in it and extra not in used:

@@ -114,6 +114,8 @@ const char *dcrig_strerror(int status);
 #define DCRIG_CTRL_SET_STOP 5u
 #define DCRIG_CTRL_SET_SPEED_REF_RPM 6u
 #define DCRIG_CTRL_BYE 7u
+#define DCRIG_CTRL_SET_FIELD_ECONOMY 8u /* operator field economy input, value 0/1 */
+#define DCRIG_CTRL_SET_QUICK_STOP 9u    /* operator quick-stop input, value 0/1 */
 
 /* COMMAND, controller -> host (fixed point) */
 typedef struct {
