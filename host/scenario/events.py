@@ -45,9 +45,10 @@ class LinkGate:
         return self.inner.send_feedback(fb)
 
     def send_control(self, op_or_msg, value: float = 0.0, text: str = ""):
-        if self.dropped:
-            return None  # lost with everything else while the link is down
-        return self.inner.send_control(op_or_msg, value, text)
+        send = getattr(self.inner, "send_control", None)
+        if self.dropped or send is None:
+            return None  # lost with everything else while the link is down; or nobody to tell
+        return send(op_or_msg, value, text)
 
     def recv_command(self, timeout_s):
         if self.dropped:
