@@ -91,7 +91,13 @@ def export_closed_loop(run_dir: Path, title: str, plot: bool, out=None) -> dict:
                     plot_run(rows, tmp, title)
                     tmp.replace(files["plot"])
     except KeyboardInterrupt:
-        print(f"\ninterrupted while writing the exports; the record is whole: dcrig runs export {run_dir} "
-              "--format csv", file=out)
+        tell_export_again(run_dir, out)
         raise
     return files
+
+
+def tell_export_again(run_dir: Path, out=None) -> None:
+    """After a Ctrl-C while the exports were written: the record is whole, this is how to
+    write them again (an export is written atomically, so none is left half-written)."""
+    print(f"\ninterrupted while writing the exports; the record is whole: dcrig runs export {run_dir} "
+          "--format csv", file=out if out is not None else sys.stdout, flush=True)

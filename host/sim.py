@@ -362,5 +362,9 @@ def plot(path: str | Path, Y: np.ndarray, title: str) -> None:
     a2.legend(loc="lower right", fontsize=8)
     fig.suptitle(title)
     fig.tight_layout()
-    fig.savefig(path, dpi=110)
+    # whole or absent: a Ctrl-C while saving must not leave a half-written PNG under its name
+    path = Path(path)
+    tmp = path.with_name(f".{path.name}.tmp.png")
+    fig.savefig(tmp, dpi=110)
     plt.close(fig)
+    tmp.replace(path)

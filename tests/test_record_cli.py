@@ -265,3 +265,16 @@ def test_ctrl_c_right_after_start_is_one_line(delay_s):
     assert rc in (0, 130)  # 0 when it had finished before the signal
     if rc == 130:
         assert se.strip().splitlines() == ["error: interrupted"]
+
+
+def test_a_scenario_record_says_it_is_one(kernel, tmp_path, capsys):
+    # `dcrig runs list` printed "?" as the kind of every scenario record
+    scn = ROOT / "configs" / "scenarios" / "f3_armature_short.toml"
+    assert main(["scenario", str(scn), "--out", str(tmp_path), "--no-plot"]) in (0, 1)
+    (run_dir,) = [p for p in tmp_path.iterdir() if p.is_dir()]
+    with open_record(run_dir) as rd:
+        assert rd.meta["run_kind"] == "scenario" and rd.meta["run_name"] == "f3_armature_short"
+    capsys.readouterr()
+    assert main(["runs", "list", str(tmp_path)]) == 0
+    listed = [ln for ln in capsys.readouterr().out.splitlines() if str(run_dir) in ln]
+    assert len(listed) == 1 and " scenario " in listed[0], listed

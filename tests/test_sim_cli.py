@@ -43,3 +43,23 @@ def test_help_shows_change_and_hides_step():
     p = subprocess.run([sys.executable, "-m", "host.cli", "sim", "--help"], cwd=ROOT, capture_output=True,
                        text=True, timeout=60, env={"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin"})
     assert p.returncode == 0 and "--change NAME@T=VALUE" in p.stdout and "--step" not in p.stdout
+
+
+def test_ctrl_c_while_exporting_keeps_the_whole_record_and_says_so(kernel, tmp_path, capsys, monkeypatch):
+    # the run is done and its record closed complete; an interrupt while the CSV is written
+    # leaves no CSV under its name (exports are atomic) and must say how to write it again
+    import host.record.export as export
+    from host.record import open_record
+
+    def interrupted(*args, **kw):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(export, "export_frames_csv", interrupted)
+    out = tmp_path / "x.csv"
+    assert main(["sim", F3, "--t-end", "0.05", "--out", str(out)]) == 130
+    said = capsys.readouterr()
+    assert "the record is whole: dcrig runs export" in said.out
+    assert said.err.strip() == "error: interrupted"
+    assert not out.exists()
+    with open_record(tmp_path / "x-run") as rd:
+        assert rd.status == "complete" and len(rd.frames()) > 1

@@ -60,7 +60,7 @@ def _do_sim(args):
     from ..outputs import check_output_file
     from ..record import RECORD_FILE, new_run_dir, open_record
     from ..record.export import export_frames_csv
-    from ..recording import end_status, open_run_record
+    from ..recording import end_status, open_run_record, tell_export_again
     from ..sim import (CSV_COLUMNS, check_inputs, check_segments, overspeed_limit_rpm, parse_change, parse_ramp, plot,
                        run_offline)
     from . import load_plant
@@ -156,10 +156,14 @@ def _do_sim(args):
     if flags:
         rec.event(float(t[-1]), "model", "model flags seen: " + ", ".join(flags), flags=flags)
     rec.close("error: nonfinite_state" if status & L.ST_NONFINITE else "complete")
-    with open_record(run_dir) as rd:
-        export_frames_csv(rd, out, columns=csv_cols)
-    if args.plot:
-        plot(args.plot, Y, plant.machine["machine.name"])
+    try:
+        with open_record(run_dir) as rd:
+            export_frames_csv(rd, out, columns=csv_cols)
+        if args.plot:
+            plot(args.plot, Y, plant.machine["machine.name"])
+    except KeyboardInterrupt:
+        tell_export_again(run_dir)  # a Ctrl-C after the run: say the record is whole
+        raise
     last = Y[-1]
     print(f"{plant.machine['machine.name']}: {t[-1]:.3f} s simulated, {len(t)} rows -> {args.out}"
           + (f", plot -> {args.plot}" if args.plot else "") + f"; record {run_dir / RECORD_FILE}")

@@ -202,6 +202,8 @@ def run_scenario(scn: Scenario, out_dir=None, *, link_url: str | None = None, fw
     period_us = int(round(plant.derived["frame_period_us"]))
     n_frames = int(math.ceil(scn.duration_s / (period_us * 1e-6) - 1e-9))
     meta = {
+        "run_kind": "scenario",  # `dcrig runs list` showed "?" for these
+        "run_name": scn.name,
         "scenario": scn.name,
         "scenario_file": str(scn.path),
         "description": scn.description,
