@@ -1,6 +1,6 @@
 """Ctrl-C at any moment: one line `error: interrupted`, status 130, never a traceback, never lost.
 
-Three ways CPython gets this wrong on its own, all found by interrupting `dcrig` at random
+Four ways CPython gets this wrong on its own, all found by interrupting `dcrig` at random
 moments of its first second (tools/crash_trials.py, tests/test_cli_interrupt_and_waits.py):
 
 * a KeyboardInterrupt raised inside a weakref or ctypes callback (importlib's module locks,

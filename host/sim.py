@@ -363,8 +363,11 @@ def plot(path: str | Path, Y: np.ndarray, title: str) -> None:
     fig.suptitle(title)
     fig.tight_layout()
     # whole or absent: a Ctrl-C while saving must not leave a half-written PNG under its name
-    path = Path(path)
-    tmp = path.with_name(f".{path.name}.tmp.png")
-    fig.savefig(tmp, dpi=110)
+    import io
+
+    from .record.rundir import write_atomic
+
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=110)
     plt.close(fig)
-    tmp.replace(path)
+    write_atomic(path, buf.getvalue())
