@@ -3,8 +3,11 @@
 Project rule (README, DEVELOPERS): a Ctrl-C is one line `error: interrupted` and status 130,
 never a traceback and never lost. The CPython behaviours provoked here were found by
 interrupting `dcrig` at random moments (tests/test_cli_interrupt_and_waits.py) and are
-CPython 3.11's (Python/pythonrun.c marks an interrupt that leaves an eval() of a string;
-Objects/typeobject.c wraps one raised in __set_name__); they are checked, not assumed.
+CPython 3.11's: run_eval_code_obj in Python/pythonrun.c sets _Py_UnhandledKeyboardInterrupt
+when an interrupt leaves an eval() of a string (read in CPython's source; that Py_RunMain in
+Modules/main.c then exits by SIGINT is from memory, and measured here); the RuntimeError around
+one raised in __set_name__ was seen here on 3.11 (that 3.12 stopped wrapping it: from
+memory). Each is provoked here, not assumed.
 """
 
 from __future__ import annotations
