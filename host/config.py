@@ -344,6 +344,15 @@ def _check_machine(cfg: Config) -> None:
     # keys that the connection ignores: said by `check`, not refused (templates share them)
     if not compound and v["machine.series_turns_ratio"] is not None:
         cfg.warnings.append(f"machine.series_turns_ratio is used by compound connections only; '{conn}' ignores it")
+    s_open, s_close = v["machine.series_short_open_rpm"], v["machine.series_short_close_rpm"]
+    if s_open is None and s_close is not None:
+        raise ConfigError(f"{src}: machine.series_short_close_rpm: needs machine.series_short_open_rpm (the speed at which the short opens), got {s_close!r}")
+    if s_open == 0.0 and s_close is not None:
+        cfg.warnings.append("machine.series_short_close_rpm: ignored, machine.series_short_open_rpm is 0 (no shorting contactor)")
+    elif s_open is not None and s_close is not None and not s_close < s_open:
+        raise ConfigError(f"{src}: machine.series_short_close_rpm: must be below series_short_open_rpm ({s_open:g}), got {s_close!r}")
+    if not compound and s_open:
+        cfg.warnings.append(f"machine.series_short_open_rpm is used by compound connections only; '{conn}' ignores it")
     if series_like:
         for path in ("machine.rated_field_current_A", "machine.field_resistance_ohm"):
             if v[path] is not None:

@@ -116,6 +116,11 @@ def _pack(machine: Config, converter: Config | None = None) -> Plant:
     p[L.P_LF_LEAK_H] = v["machine.field_leakage_H"]
     p[L.P_RSE_OHM] = v["machine.series_resistance_ohm"] or 0.0
     p[L.P_LSE_LEAK_H] = v["machine.series_leakage_H"]
+    s_open = v["machine.series_short_open_rpm"]
+    if conn in (L.CONN_LONG_SHUNT, L.CONN_SHORT_SHUNT) and s_open:
+        s_close = v["machine.series_short_close_rpm"]
+        p[L.P_SE_SHORT_OPEN_RAD_S] = s_open * RPM
+        p[L.P_SE_SHORT_CLOSE_RAD_S] = (0.5 * s_open if s_close is None else s_close) * RPM
     p[L.P_LM0_H] = v["machine.field_inductance_H"]
     p[L.P_MAG_SPEED_RAD_S] = v["machine.magnetization.speed_rpm"] * RPM
     p[L.P_MAG_INV_SPEED] = 1.0 / p[L.P_MAG_SPEED_RAD_S]

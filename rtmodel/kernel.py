@@ -62,6 +62,7 @@ from .layout import (
     CONN_LONG_SHUNT,
     CONN_SEPARATE,
     CONN_SERIES,
+    CONN_SHORT_SHUNT,
     CONN_SHUNT,
     FIELD_SUPPLY_AVERAGED,
     FIELD_SUPPLY_DC,
@@ -106,6 +107,8 @@ from .layout import (
     P_RF_OHM,
     P_RHEO_OHM,
     P_RS_OHM,
+    P_SE_SHORT_CLOSE_RAD_S,
+    P_SE_SHORT_OPEN_RAD_S,
     P_RSE_OHM,
     P_SE_TURNS_RATIO,
     P_SUPPLY_KIND,
@@ -175,6 +178,7 @@ from .layout import (
     X_THY_OFF_S0,
     X_THY_ON0,
     X_TIME_S,
+    X_SE_SHORTED,
     X_VT_V,
     X_ZERO_CURRENT_S,
     Y_ANGLE_RAD,
@@ -205,6 +209,7 @@ from .layout import (
     Y_TACHO_V,
     Y_TEMP_ARM_C,
     Y_TIME_S,
+    Y_SE_SHORTED,
     Y_TORQUE_MEAN_NM,
     Y_TORQUE_NM,
     Y_VT_MEAN_V,
@@ -538,7 +543,24 @@ def _build(codes):
             is_avg = supply == SUPPLY_AVERAGED
             load_kind = int(p[P_LOAD_KIND])
             field_kind = int(p[P_FIELD_SUPPLY_KIND])
-        cc = _connection(conn, p[P_SE_TURNS_RATIO], p[P_COMPOUND_SIGN], p[P_FIELD_SIGN])
+        # compound machines: the series-field shorting contactor of the start, worked by a speed
+        # relay once per frame (a real relay takes tens of ms, a frame a few). While it is closed
+        # the line current bypasses the series field (its resistance and inductance leave the
+        # circuit) and the machine is a shunt machine; the series field's flux is taken to
+        # follow at once (its ampere-turns are a few per cent of the shunt field's)
+        se_shorted = False
+        if (conn == CONN_LONG_SHUNT or conn == CONN_SHORT_SHUNT) and p[P_SE_SHORT_OPEN_RAD_S] > 0.0:
+            w_abs = abs(x[X_SPEED_RAD_S])
+            if x[X_SE_SHORTED] > 0.5:
+                if w_abs > p[P_SE_SHORT_OPEN_RAD_S]:
+                    x[X_SE_SHORTED] = 0.0
+            elif w_abs < p[P_SE_SHORT_CLOSE_RAD_S]:
+                x[X_SE_SHORTED] = 1.0
+            se_shorted = x[X_SE_SHORTED] > 0.5
+        if se_shorted:
+            cc = _connection(CONN_SHUNT, p[P_SE_TURNS_RATIO], p[P_COMPOUND_SIGN], p[P_FIELD_SIGN])
+        else:
+            cc = _connection(conn, p[P_SE_TURNS_RATIO], p[P_COMPOUND_SIGN], p[P_FIELD_SIGN])
 
         # ---- inputs, held for the frame
         contactor = u[U_CONTACTOR] > 0.5
@@ -1311,6 +1333,7 @@ def _build(codes):
         y[Y_INPUT_POWER_W] = sum_pin / n
         y[Y_SHAFT_POWER_W] = sum_psh / n
         y[Y_TORQUE_MEAN_NM] = sum_te / n
+        y[Y_SE_SHORTED] = 1.0 if se_shorted else 0.0
         return status
 
     return step_frame

@@ -139,6 +139,7 @@ X_LAST_FIRED_LOW = _block("X_", ["LAST_FIRED_LOW"])  # index of the last lower t
 X_LATCHED_ALPHA_RAD = _block("X_", ["LATCHED_ALPHA_RAD"])  # firing angle latched at the last instant
 X_FIELD_FIRE_AT = _block("X_", ["FIELD_FIRE_AT"])  # field bridge: unwrapped angle of next firing, -1 none
 X_VT_V = _block("X_", ["VT_V"])  # last terminal voltage (kept for forward-bias checks)
+X_SE_SHORTED = _block("X_", ["SE_SHORTED"])  # compound: 1 while the series-field shorting contactor is closed
 STATE_NAMES = tuple(_names)
 N_STATE = len(_names)
 
@@ -206,6 +207,10 @@ P_DT_S = _block("P_", ["DT_S"])  # fixed model step
 P_ENCODER_PPR = _block("P_", ["ENCODER_PPR"])
 P_TACHO_V_PER_RPM = _block("P_", ["TACHO_V_PER_RPM"])
 P_MAG_LINEAR = _block("P_", ["MAG_LINEAR"])  # 1: the curve is piecewise linear between points, 0: monotone cubic
+# compound machines: a speed relay shorts the series field for the start; it opens the short
+# above OPEN and closes it again below CLOSE (|speed|); OPEN <= 0 means no such contactor
+P_SE_SHORT_OPEN_RAD_S = _block("P_", ["SE_SHORT_OPEN_RAD_S"])
+P_SE_SHORT_CLOSE_RAD_S = _block("P_", ["SE_SHORT_CLOSE_RAD_S"])
 PARAM_NAMES = tuple(_names)
 N_PARAM = len(_names)
 
@@ -275,6 +280,7 @@ Y_ENCODER_COUNT = _block("Y_", ["ENCODER_COUNT"])  # quadrature counts (4 x PPR 
 Y_INPUT_POWER_W = _block("Y_", ["INPUT_POWER_W"])  # Vt * i_line, frame mean
 Y_SHAFT_POWER_W = _block("Y_", ["SHAFT_POWER_W"])  # load torque * speed, frame mean
 Y_TORQUE_MEAN_NM = _block("Y_", ["TORQUE_MEAN_NM"])  # electromagnetic torque, frame mean
+Y_SE_SHORTED = _block("Y_", ["SE_SHORTED"])  # 1: series field shorted during the frame
 OUTPUT_NAMES = tuple(_names)
 N_OUTPUT = len(_names)
 del _names
@@ -314,5 +320,6 @@ OUTPUT_COLUMNS = {
     Y_INPUT_POWER_W: "input_power_W",
     Y_SHAFT_POWER_W: "shaft_power_W",
     Y_TORQUE_MEAN_NM: "torque_mean_Nm",
+    Y_SE_SHORTED: "series_field_shorted",
 }
 assert len(OUTPUT_COLUMNS) == N_OUTPUT

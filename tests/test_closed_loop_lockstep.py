@@ -74,12 +74,9 @@ MOTORS = {
     "pinch_roll": Motor("kestrel_pinch_roll", "kestrel_pinch_bridge", "kestrel_pinch_roll", 8.0),
     # the fan's field builds only with the armature voltage: it needs ~12 s (see its settings)
     "shunt_fan": Motor("kestrel_shunt_fan", "kestrel_pinch_bridge", "kestrel_shunt_fan", 16.0),
-    # Not here: the differential compound test stand. With its shunt field across the armature
-    # and the series field subtracting, it has almost no flux at standstill under current
-    # control (net excitation ~0.0004 A per armature ampere), and the emulated controller has
-    # no voltage-ramp start, so it creeps at ~70 r/min: a limit of the controller, recorded in
-    # configs/controllers/kestrel_test_stand.toml; its physics is checked against scipy in
-    # tests/test_machine_transients.py.
+    # Not here: the differential compound test stand. It starts on a voltage ramp with its
+    # series field shorted and only with the brake idling (tests/test_series_short.py runs its
+    # shipped scenario); its physics is checked against scipy in tests/test_machine_transients.py.
 }
 
 
