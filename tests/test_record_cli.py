@@ -278,3 +278,35 @@ def test_a_scenario_record_says_it_is_one(kernel, tmp_path, capsys):
     assert main(["runs", "list", str(tmp_path)]) == 0
     listed = [ln for ln in capsys.readouterr().out.splitlines() if str(run_dir) in ln]
     assert len(listed) == 1 and " scenario " in listed[0], listed
+
+
+def test_ctrl_c_on_a_scenario_says_where_the_record_is(kernel, tmp_path):
+    # `dcrig scenario` said only "error: interrupted": the user had to look for the run folder
+    scn = tmp_path / "long_run.toml"
+    cfg = ROOT / "configs"
+    scn.write_text(f"""
+[scenario]
+name = "long_run"
+duration_s = 120.0
+[plant]
+machine = "{(cfg / 'machines' / 'kestrel_f3_stand.toml').as_posix()}"
+converter = "{(cfg / 'converters' / 'kestrel_f3_bridge.toml').as_posix()}"
+[controller]
+kind = "emulated"
+settings = "{(cfg / 'controllers' / 'kestrel_f3_stand.toml').as_posix()}"
+[start]
+state = "running"
+speed_rpm = 400.0
+[[expect]]
+kind = "no_trip"
+""")
+    out = tmp_path / "runs"
+    proc = _spawn("scenario", scn, "--out", out, "--no-plot")
+    _wait_rows(out / "long_run" / "record.sqlite", 300, proc)
+    proc.send_signal(signal.SIGINT)
+    rc, so, se = _finish(proc)
+    assert rc == 130, (so, se)
+    assert se.strip().splitlines() == ["error: interrupted"], se
+    assert f"interrupted: the record so far is kept (status stopped): {out / 'long_run'}" in so, so
+    with open_record(out / "long_run") as rd:
+        assert rd.status == "stopped" and len(rd.frames()) >= 300

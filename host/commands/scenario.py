@@ -39,7 +39,17 @@ def _do_scenario(args):
 
     load_scenario(args.file)  # bad input: one line, exit 2, before the banner and before anything runs
     print(SAFETY + "\n")
-    row = run_one(args.file, args.out, args.link, plots=not args.no_plot)
+    try:
+        row = run_one(args.file, args.out, args.link, plots=not args.no_plot)
+    except KeyboardInterrupt as err:
+        run_dir = getattr(err, "run_dir", None)
+        if run_dir is not None:  # say where the record is, as sim and demo do
+            if getattr(err, "run_complete", False):
+                print(f"\ninterrupted while judging or plotting; the run itself is complete in its record: "
+                      f"{run_dir}", flush=True)
+            else:
+                print(f"\ninterrupted: the record so far is kept (status stopped): {run_dir}", flush=True)
+        raise
     if row["outcome"] == "error":
         from ..errors import DcrigError
 

@@ -312,6 +312,8 @@ def run_scenario(scn: Scenario, out_dir=None, *, link_url: str | None = None, fw
             cable.close()
         if recorder is not None:
             recorder.close(status if stopped is None else "stopped")
+    if isinstance(stopped, KeyboardInterrupt) and run_dir is not None:
+        stopped.run_dir = run_dir  # for the command to say where the record so far is
     if loop is None:
         raise stopped if stopped is not None else LinkError(f"{scn.path}: the run did not start")
     stats = {"frames": loop.stats.frames, "missed_commands": loop.stats.missed_commands,

@@ -18,6 +18,7 @@ from concurrent.futures import ProcessPoolExecutor, as_completed
 from pathlib import Path
 
 from host.errors import DcrigError
+from host.record.rundir import write_atomic
 
 from .load import Suite
 
@@ -41,19 +42,25 @@ def run_one(scenario_path: str, out_dir: str | None, link_url: str | None = None
         scn = load_scenario(scenario_path)
         row.update(name=scn.name, description=scn.description, controller=link_url or scn.controller_kind)
         rec = run_scenario(scn, out_dir, link_url=link_url)
-        t_j = time.perf_counter()
-        v = judge(rec.frames, rec.columns, rec.events, rec.meta, scn.expects)
-        judge_s = time.perf_counter() - t_j
-        row.update(passed=v.passed, outcome=outcome_of(v.passed, must_fail), verdict=v.to_dict(),
-                   figures=v.figures, wall_s=rec.wall_s, model_s=rec.stats["model_s"], frames=len(rec.frames),
-                   judge_s=judge_s, run_dir=str(rec.run_dir) if rec.run_dir else "", plots=[],
-                   events=[list(e) for e in rec.events])
-        if rec.run_dir is not None:
-            (rec.run_dir / "verdict.json").write_text(json.dumps(v.to_dict(), indent=1, default=str))
-            if plots:
-                from .plots import plot_scenario
+        try:
+            t_j = time.perf_counter()
+            v = judge(rec.frames, rec.columns, rec.events, rec.meta, scn.expects)
+            judge_s = time.perf_counter() - t_j
+            row.update(passed=v.passed, outcome=outcome_of(v.passed, must_fail), verdict=v.to_dict(),
+                       figures=v.figures, wall_s=rec.wall_s, model_s=rec.stats["model_s"], frames=len(rec.frames),
+                       judge_s=judge_s, run_dir=str(rec.run_dir) if rec.run_dir else "", plots=[],
+                       events=[list(e) for e in rec.events])
+            if rec.run_dir is not None:
+                write_atomic(rec.run_dir / "verdict.json", json.dumps(v.to_dict(), indent=1, default=str))
+                if plots:
+                    from .plots import plot_scenario
 
-                row["plots"] = [str(p) for p in plot_scenario(rec, v, rec.run_dir)]
+                    row["plots"] = [str(p) for p in plot_scenario(rec, v, rec.run_dir)]
+        except KeyboardInterrupt as err:
+            if rec.run_dir is not None:  # the run itself is complete in its record
+                err.run_dir = rec.run_dir
+                err.run_complete = True
+            raise
     except (DcrigError, OSError, ValueError, RuntimeError) as err:
         row.update(passed=False, outcome="error", error=f"{err.__class__.__name__}: {err}",
                    detail=traceback.format_exc(limit=4))
