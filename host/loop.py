@@ -370,8 +370,11 @@ class HostLoop:
                                    f"reaction: {self.on_link_loss} (latched until a reset)")
         c = self.last_cmd
         if self._link_lost and self.on_link_loss == "block":
+            # the controller's trip flag and code stay: they are what it reports, not what is applied
+            # (a trip it declares while the host holds the latch must still reach the record)
             c = sig.Command(mode=c.mode, bridge_select=sig.BRIDGE_BLOCKED, armature_cmd=c.armature_cmd,
-                            field_mode=c.field_mode, field_cmd=c.field_cmd, contactor=0)
+                            field_mode=c.field_mode, field_cmd=c.field_cmd, contactor=0, trip=c.trip,
+                            trip_code=c.trip_code, seq=c.seq)
             self.last_cmd = c
         for hook in self.hooks:
             hook(self)

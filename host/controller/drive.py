@@ -28,6 +28,7 @@ from host.signals import (
     BRIDGE_REVERSE,
     FIELD_MODE_FIRING_ANGLE,
     FIELD_MODE_VOLTAGE,
+    HOST_WATCHDOG_TRIPPED,
     MODE_FIRING_ANGLE,
     MODE_VOLTAGE,
     Command,
@@ -162,6 +163,7 @@ class DriveController:
         self._ml_thr = g("protection.mains_loss.threshold_V")
         self._ms_min_adv = g("protection.mains_sync.min_advance_deg")
         self._suppress_timeout = g("trip.suppress_timeout_s")
+        self._cl_timeout_us = g("protection.comms_loss.timeout_s") * 1e6
 
         self._p_oc = Persist(g("protection.overcurrent.delay_s"))
         self._p_ol = Persist(g("protection.overload.delay_s"))
@@ -236,6 +238,8 @@ class DriveController:
         self._closed_seen = False
         self._release_timer_s = 0.0
         self._prev_mains_deg = -1.0
+        self._last_fb_us = -1  # model time of the last feedback, -1 none since reset
+        self._watchdog_seen = True  # a latch already on at reset is not a new one: trip on its rising edge
         self._trip_code = 0
         self._trip_time_s = 0.0
         self._trip_model_time_us = 0
@@ -348,6 +352,15 @@ class DriveController:
         # time in the present state; a state entered in this frame starts at 0
         self._state_timer_s += dt_s
         # ---- protections ----------------------------------------------------------------------
+        mt = fb.model_time_us
+        gap_us = (mt - self._last_fb_us) & 0xFFFFFFFF if self._last_fb_us >= 0 else 0
+        self._last_fb_us = mt
+        watchdog = bool(fb.host_status & HOST_WATCHDOG_TRIPPED)
+        watchdog_new = watchdog and not self._watchdog_seen
+        self._watchdog_seen = watchdog
+        if state != TRIPPED and ((self._cl_timeout_us > 0.0 and gap_us > self._cl_timeout_us) or watchdog_new):
+            self.trip(TripCode.COMMS_LOSS, gap_us * 1e-3, mt)
+            state = self._state
         if state != TRIPPED:
             self._protect(fb, dt_s, ia, va, i_f, n_raw, n, emf, phi, state)
             state = self._state

@@ -92,6 +92,9 @@ class InProcSession:
         elif op == sig.CTRL_RESET:
             self.controller.reset()
             self._prev_model_us = None
+            # as over a link (host.controller.process): a controller that reset tells the host,
+            # which clears a latched watchdog reaction (docs/protocol.md section 8)
+            self._events.append(sig.ControlMessage(op=sig.CTRL_RESET, value=0.0, text="operator reset"))
         elif op == sig.CTRL_SET_FIELD_ECONOMY:
             self.controller.set_field_economy(bool(value))
         elif op == sig.CTRL_SET_QUICK_STOP:

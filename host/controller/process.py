@@ -99,6 +99,8 @@ def _loop(session, ctrl, idle_timeout_s, max_frames, clock, on_frame) -> dict:
                     ctrl.reset()
                     resets += 1
                     prev_model_us = None
+                    # reset done: the host may clear its latched watchdog reaction (section 8)
+                    session.send_control(sig.CTRL_RESET, 0.0, "operator reset")
                 elif op == sig.CTRL_SET_RUN:
                     overrides.run = 1 if ev.value else 0
                 elif op == sig.CTRL_SET_STOP:

@@ -21,6 +21,7 @@ class TripCode(IntEnum):
     MAINS_LOSS = 7  # measured mains voltage below threshold
     MAINS_SYNC = 8  # mains angle not advancing (lost synchronisation signal)
     CONTACTOR = 9  # contactor feedback did not follow the command in time
+    COMMS_LOSS = 10  # feedback stopped for longer than its timeout, or the host's watchdog latched
 
 
 # unit of TripReport.detail for each code
@@ -34,6 +35,7 @@ TRIP_DETAIL_UNIT = {
     TripCode.MAINS_LOSS: "V",
     TripCode.MAINS_SYNC: "deg",
     TripCode.CONTACTOR: "s",
+    TripCode.COMMS_LOSS: "ms",
 }
 
 

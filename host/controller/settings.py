@@ -255,6 +255,11 @@ _k("protection.mains_sync.delay_s", "float", 0.02, "must be in 0..5", _between(0
    "Time the mains angle may stand still before a trip.")
 _k("protection.contactor.timeout_s", "float", 0.5, "must be in 0..10", _between(0, 10),
    "Time allowed for the contactor feedback to follow the command.")
+_k("protection.comms_loss.timeout_s", "float", 0.05, "must be in 0..10", _between(0, 10),
+   "Model time between two feedback frames above this trips (detail: the silence in ms); 0 turns "
+   "the time check off. The host's watchdog bit coming on (HOST_WATCHDOG_TRIPPED: the host "
+   "refuses this controller's commands) trips as well. In lockstep the controller's time moves "
+   "only with the feedback, so it hears of a silence when the link returns.")
 
 # --- trip -------------------------------------------------------------------------------------
 _k("trip.suppress_timeout_s", "float", 0.02, "must be in 0..1", _between(0, 1),
@@ -277,7 +282,7 @@ _k("voltage_start.current_limit_A", "float", 0.0, "must be >= 0", _nonneg,
 # classes, so they never depend on one firmware's numbering) ----------------------------------
 _TRIP_CLASS_DEFAULTS = (("overcurrent", 1), ("overload", 2), ("overspeed", 3), ("field_loss", 4),
                         ("tacho_loss", 5), ("overvoltage", 6), ("mains_loss", 7), ("mains_sync", 8),
-                        ("contactor", 9))
+                        ("contactor", 9), ("comms_loss", 10))
 
 
 def _codes(v):

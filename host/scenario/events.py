@@ -127,6 +127,11 @@ class ScenarioDriver:
             op.speed_ref_rpm = 0.0
             self._control(loop, sig.CTRL_SET_QUICK_STOP, 1.0)
             self._quick_stop_on = True
+        elif a.action == "reset":
+            # the operator's fault reset (CONTROL op 1 to the controller); a controller that
+            # resets answers with its own CONTROL reset, which clears a latched host watchdog
+            self._control(loop, sig.CTRL_RESET, 0.0)
+            text = "operator reset"
         elif a.action == "field_economy":
             self._control(loop, sig.CTRL_SET_FIELD_ECONOMY, a.value)
             text = f"field economy {'on' if a.value else 'off'}"

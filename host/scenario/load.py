@@ -41,12 +41,12 @@ FAULTS: dict[str, tuple[str | None, str, Any, str]] = {
 # faults of the bridge's mains and thyristors: need a bridge converter
 BRIDGE_FAULTS = {"mains_dip", "phase_loss", "frequency_step", "misfire", "shorted_thyristor", "blown_fuse"}
 
-ACTIONS = ("run", "stop", "quick_stop", "field_economy", "speed_ref", "speed_ramp", "load_step", "load_ramp",
+ACTIONS = ("run", "stop", "quick_stop", "reset", "field_economy", "speed_ref", "speed_ramp", "load_step", "load_ramp",
            "load_profile", "fault")
 EXPECT_KINDS = ("trip", "no_trip", "bounds", "settles", "current_zero", "harm")
 CONTROLLER_KINDS = ("emulated", "process", "c_example", "link")
 TRIP_CLASSES = ("overcurrent", "overload", "overspeed", "field_loss", "tacho_loss", "overvoltage",
-                "mains_loss", "mains_sync", "contactor")
+                "mains_loss", "mains_sync", "contactor", "comms_loss")
 HARM_CHECKS = ("commutation_limit", "overspeed", "field_loss_energised", "winding_temperature",
                "armature_overvoltage", "current_rise_rate")
 SIGNALS_NOTE = "a frame record column (host.loop.REC_COLUMNS)"
