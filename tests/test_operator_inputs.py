@@ -105,11 +105,15 @@ def _decel_rpm_per_s(tmp_path, tag, action, set_line):
     body = QUICK.replace("{{tag}}", tag).replace("{{action}}", action).replace("{{set}}", set_line)
     f = _run(_write(tmp_path, f"quick_{tag}", body))
     t, n = f[:, R["time_s"]], f[:, R["speed_rpm"]]
-    # the slope between 250 and 100 r/min: the ramp's middle, away from its start and the rest
-    t250 = t[np.argmax((t > 0.2) & (n < 250.0))]
-    t100 = t[np.argmax((t > 0.2) & (n < 100.0))]
-    assert t100 > t250 > 0.2
-    return 150.0 / (t100 - t250)
+    # the slope between 200 and 50 r/min: the ramp's middle. Not nearer the start: a stop of
+    # the dual bridge begins with a changeover (40 ms dwell, current zero, dead time: about
+    # 70 ms in which the speed cannot follow the ramp), and the speed loop catches up after it
+    # (250 -> 100 r/min read 450 r/min/s on a 375 ramp); not nearer the rest, where the S-curve
+    # of ramp.rounding_s rounds the plain stop off
+    t200 = t[np.argmax((t > 0.2) & (n < 200.0))]
+    t50 = t[np.argmax((t > 0.2) & (n < 50.0))]
+    assert t50 > t200 > 0.2
+    return 150.0 / (t50 - t200)
 
 
 def test_quick_stop_uses_its_own_ramp_and_a_plain_stop_does_not(tmp_path):

@@ -71,18 +71,28 @@ class PI:
 
 class Ramp:
     """Ramp generator: the output moves to the target at the accel rate while |output| grows
-    and at the decel rate while it falls towards zero (a reversal decelerates to zero first)."""
+    and at the decel rate while it falls towards zero (a reversal decelerates to zero first).
 
-    __slots__ = ("out",)
+    With rounding_s > 0 the rate itself is ramped (an S-curve, jerk = rate / rounding_s): it
+    builds up over rounding_s and dies away so that the output lands on the target with zero
+    rate. A drive's acceleration feedforward then rises and falls smoothly instead of
+    stepping, so the speed loop has no current step to absorb where a linear ramp ends
+    (common practice, no source: "ramp rounding" or jerk limitation)."""
+
+    __slots__ = ("out", "rate")
 
     def __init__(self):
         self.out = 0.0
+        self.rate = 0.0  # d out / dt of the last step
 
     def reset(self, value: float = 0.0) -> None:
         self.out = value
+        self.rate = 0.0
 
-    def step(self, target: float, dt_s: float, accel: float, decel: float) -> float:
+    def step(self, target: float, dt_s: float, accel: float, decel: float, rounding_s: float = 0.0) -> float:
         y = self.out
+        if rounding_s > 0.0 and dt_s > 0.0:
+            return self._rounded(target, dt_s, accel, decel, rounding_s)
         if target > y:
             if y < 0.0:  # moving towards zero from below: decelerating
                 y += decel * dt_s
@@ -105,8 +115,39 @@ class Ramp:
                 y -= accel * dt_s
                 if y < target:
                     y = target
+        self.rate = (y - self.out) / dt_s if dt_s > 0.0 else 0.0
         self.out = y
         return y
+
+    def _rounded(self, target: float, dt_s: float, accel: float, decel: float, rounding_s: float) -> float:
+        y = self.out
+        d = target - y
+        r = self.rate
+        if d == 0.0 and r == 0.0:
+            return y
+        s = 1.0 if d > 0.0 or (d == 0.0 and r < 0.0) else -1.0
+        growing = (y >= 0.0) if s > 0.0 else (y <= 0.0)  # moving away from zero: accel rate
+        a = accel if growing else decel
+        j = a / rounding_s
+        rs = r * s  # rate towards the target
+        dist = d * s
+        rs_new = rs + j * dt_s
+        if rs_new > a:
+            rs_new = a
+        # the rate from which the jerk limit just stops the output on the target: the rate
+        # follows sqrt(2 j distance) in, which brings it down at the jerk rate
+        land = math.sqrt(2.0 * j * dist) if dist > 0.0 else 0.0
+        if rs_new > land:
+            rs_new = land
+        if rs_new * dt_s >= dist:
+            self.out, self.rate = target, 0.0  # landed (within one step's rate change)
+            return target
+        y_new = y + s * rs_new * dt_s
+        if (y_new - target) * s >= 0.0:
+            self.out, self.rate = target, 0.0
+            return target
+        self.out, self.rate = y_new, s * rs_new
+        return y_new
 
 
 def lowpass_factor(dt_s: float, tau_s: float) -> float:

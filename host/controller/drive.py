@@ -118,6 +118,8 @@ class DriveController:
         self._decel = g("ramp.decel_rpm_per_s")
         self._stop_decel = g("ramp.stop_decel_rpm_per_s")
         self._quick_decel = g("ramp.quick_stop_decel_rpm_per_s") or self._stop_decel
+        self._rounding = g("ramp.rounding_s")
+        self._i_rise = g("current_loop.reference_rise_A_per_s")
         # operator inputs that reach the controller as CONTROL messages, not in every feedback;
         # they persist through reset() (they are the operator's, not the controller's state)
         self._economy_on = True
@@ -229,6 +231,8 @@ class DriveController:
         self._alpha_deg = self._a_max
         self._alpha_floor = self._a_max
         self._floor_limited = False
+        self._i_b_prev = 0.0  # bridge-relative current reference of the last frame (rise limit)
+        self._rise_limited = False
         self._dcm = False
         self._if_ref = 0.0
         self._vf_ref = 0.0
@@ -237,6 +241,7 @@ class DriveController:
         self._field_established = False
         self._closed_seen = False
         self._release_timer_s = 0.0
+        self._at_rest = False  # a stop has reached zero speed: current to zero, no speed loop
         self._prev_mains_deg = -1.0
         self._last_fb_us = -1  # model time of the last feedback, -1 none since reset
         self._watchdog_seen = True  # a latch already on at reset is not a new one: trip on its rising edge
@@ -400,6 +405,7 @@ class DriveController:
                         self._cur_pi.reset()
                         self._co.start(0.0)
                         self._alpha_floor = self._a_max
+                        self._i_b_prev = 0.0
                         released = True
                 else:
                     self._closed_seen = False
@@ -419,6 +425,8 @@ class DriveController:
             self._release_timer_s = 0.0
 
         # ---- speed loop -----------------------------------------------------------------------
+        if state != STOPPING:
+            self._at_rest = False
         co = self._co
         bridge = BRIDGE_BLOCKED
         if state == TRIPPED:
@@ -434,17 +442,21 @@ class DriveController:
                 if ref < lo:
                     ref = lo
                 w_before = self._ramp.out
-                w = self._ramp.step(ref, dt_s, self._accel, self._decel)
+                w = self._ramp.step(ref, dt_s, self._accel, self._decel, self._rounding)
             else:
                 w_before = self._ramp.out
                 rate = self._quick_decel if self._quick_stop else self._stop_decel
-                w = self._ramp.step(0.0, dt_s, rate, rate)
+                w = self._ramp.step(0.0, dt_s, rate, rate, 0.0 if self._quick_stop else self._rounding)
             # acceleration feedforward: the current that accelerates the inertia at the ramp's
             # rate, I = J dw/dt / (k phi), so the integrator holds only the load and nothing is
             # left in it to overshoot with when the ramp ends
             i_acc = self._j_ff * (w - w_before) / dt_s * RPM_TO_RAD_S / self._kt_Nm_per_A
-            if state == STOPPING and w == 0.0 and -self._zero_speed < n < self._zero_speed:
-                # at rest: current to zero, then block pulses, then open the contactor
+            if state == STOPPING and w == 0.0 and (self._at_rest or -self._zero_speed < n < self._zero_speed):
+                # at rest: current to zero, then block pulses, then open the contactor. Latched:
+                # a speed reading that leaves the zero-speed band again while the current falls
+                # (the shaft rocks on its coupling) must not restart the speed loop, or the
+                # drive hunts across zero with a changeover each way (seen: +-400 A at rest)
+                self._at_rest = True
                 i_ref = 0.0
                 self._speed_pi.reset()
                 if -self._zero_i < ia < self._zero_i:
@@ -474,7 +486,7 @@ class DriveController:
                     phi_s = 1.0  # series flux follows the current itself; no scheduling
                 # no torque while the bridges change over or a bridge soft-starts: freeze the
                 # speed integrator then, or it winds up and the drive hunts across zero current
-                hold = co.phase != CONDUCT or self._floor_limited
+                hold = co.phase != CONDUCT or self._floor_limited or self._rise_limited
                 if self._dual and co.phase == CONDUCT:
                     # a reference the active bridge cannot carry gives no torque: once it has
                     # passed the changeover hysteresis (the changeover dwell is running) the
@@ -515,10 +527,18 @@ class DriveController:
             if co.switched:
                 self._alpha_floor = a_max
                 self._cur_pi.reset()
+                self._i_b_prev = 0.0
+            self._rise_limited = False
             if phase == CONDUCT:
                 i_b = s * i_ref
                 if i_b < 0.0:
                     i_b = 0.0
+                if self._i_rise > 0.0:
+                    top = self._i_b_prev + self._i_rise * dt_s
+                    if i_b > top:
+                        i_b = top
+                        self._rise_limited = True
+                self._i_b_prev = i_b
                 i_cmd = s * i_b
                 ia_b = s * ia
                 floor = self._alpha_floor
@@ -547,6 +567,7 @@ class DriveController:
                 self._alpha_floor = fl if fl > self._a_min else self._a_min
             else:
                 self._cur_pi.reset()
+                self._i_b_prev = 0.0
             if phase == ZEROING:
                 bridge = co.bridge
             if phase == DEAD:

@@ -111,6 +111,11 @@ _k("ramp.stop_decel_rpm_per_s", "float", REQUIRED, "must be > 0", _pos,
 _k("ramp.quick_stop_decel_rpm_per_s", "float", 0.0, "must be >= 0", lambda v: v >= 0,
    "Ramp rate to zero while the operator's quick-stop input is on (CONTROL op 9); 0 = the "
    "stop ramp.")
+_k("ramp.rounding_s", "float", 0.0, "must be in 0..10", _between(0, 10),
+   "S-curve: the ramp's rate builds up and dies away over this time (jerk = rate / "
+   "rounding_s), so the acceleration current rises and falls smoothly and the speed lands on "
+   "its reference, and at zero, without a current step; each ramp takes this much longer. "
+   "0 = linear ramps. The quick stop stays linear.")
 
 # --- speed loop -------------------------------------------------------------------------------
 _k("speed_loop.kp_A_per_rpm", "float", REQUIRED, "must be > 0", _pos,
@@ -151,6 +156,13 @@ _k("current_loop.dcm_gain_factor", "float", 4.0, "must be in 1..50", _between(1,
 _k("current_loop.release_rate_deg_per_s", "float", 3000.0, "must be > 0", _pos,
    "Rate at which the firing-angle floor moves down from the inversion end after pulses are "
    "released or a bridge changeover (soft start, no surge).")
+_k("current_loop.reference_rise_A_per_s", "float", 0.0, "must be >= 0", _nonneg,
+   "Largest rate of rise of the current reference's magnitude on the conducting bridge (a "
+   "di/dt limit on the reference, common practice); a falling reference is not limited. It "
+   "starts from zero at every pulse release and changeover, so a bridge taking over from the "
+   "other under a large speed error brings its current in over a few frames instead of at "
+   "once (the current loop's gain is raised in discontinuous conduction and overshot). "
+   "0 = no limit.")
 
 # --- changeover (dual bridge) ------------------------------------------------------------------
 _k("changeover.zero_current_A", "float", REQUIRED, "must be > 0", _pos,
