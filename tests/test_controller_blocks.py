@@ -87,6 +87,53 @@ def test_ramp_rates_accel_and_decel():
     assert n == math.ceil(500.0 / (decel * DT) - 1e-9)  # 10 s at 50 rpm/s
 
 
+@pytest.mark.parametrize("accel, rounding_s", [(150.0, 0.4), (500.0, 0.2), (50.0, 1.0)])
+def test_rounded_ramp_is_an_s_curve(accel, rounding_s):
+    """A jerk-limited ramp (hand calculation, no source needed): the rate rises at
+    j = accel / rounding_s to accel, runs there and falls at j to land on the target with zero
+    rate, so a ramp of height H takes H / accel + rounding_s; during the rise the output is
+    j t^2 / 2. Never above the target, rate never above accel."""
+    r = Ramp()
+    H = 500.0
+    j = accel / rounding_s
+    out, rate = [], []
+    for _ in range(int((H / accel + 2 * rounding_s) / DT)):
+        out.append(r.step(H, DT, accel, accel, rounding_s))
+        rate.append(r.rate)
+    out, rate = np.array(out), np.array(rate)
+    assert np.all(out <= H) and np.all(np.diff(out) >= 0.0)
+    assert np.max(rate) == pytest.approx(accel, rel=1e-9)
+    n_land = int(np.argmax(out >= H)) + 1
+    # within four frames: the discrete rate leads by a frame at the start (it is j DT in the
+    # first frame), the braking curve is evaluated at the frame start, the last frame snaps
+    assert n_land * DT == pytest.approx(H / accel + rounding_s, abs=4 * DT)
+    # the start: j t^2 / 2 (the discrete rate rises j DT per frame: within one frame's rise)
+    k = int(0.5 * rounding_s / DT)
+    t = (k + 1) * DT
+    assert out[k] == pytest.approx(j * t * t / 2.0, rel=0.05)
+    # jerk j while the rate builds up and on the run-in, up to 1.25 j in the last frames (the
+    # braking curve sqrt(2 j distance) is sampled once a frame), not counting the final snap
+    dj = np.abs(np.diff(rate[:n_land - 1])) / DT
+    assert np.all(dj[: n_land // 2] <= j * (1 + 1e-9))
+    assert np.max(dj) <= 1.3 * j
+    assert rate[n_land - 2] <= 2.5 * j * DT * 2
+    assert r.rate == 0.0
+
+
+def test_rounded_ramp_lands_on_zero_for_a_stop_and_follows_a_new_target():
+    r = Ramp()
+    r.reset(300.0)
+    for _ in range(int(3.0 / DT)):
+        r.step(0.0, DT, 150.0, 150.0, 0.4)
+    assert r.out == 0.0 and r.rate == 0.0
+    # a target changed in mid-ramp: the output turns smoothly and never passes the new target
+    r.reset(0.0)
+    outs = [r.step(500.0, DT, 150.0, 150.0, 0.4) for _ in range(int(1.0 / DT))]
+    outs += [r.step(200.0, DT, 150.0, 150.0, 0.4) for _ in range(int(4.0 / DT))]
+    assert max(outs) < 200.0 + 1e-9 or outs[-1] == 200.0
+    assert outs[-1] == 200.0
+
+
 def test_ramp_reversal_decelerates_to_zero_first():
     r = Ramp()
     r.reset(100.0)
