@@ -267,3 +267,24 @@ def test_publish_and_frame_are_not_mixed(tmp_path):
     rec.publish(_rows(5), 5)
     with pytest.raises(RecordError, match="mixed"):
         rec.close()
+
+
+def test_a_reader_open_while_the_run_closes_does_not_fail_the_run(tmp_path):
+    # found by tools/crash_trials.py polling a live record: the recorder's close folds the WAL
+    # in and leaves WAL mode, which needs the file to itself; a reader open at that moment
+    # (`dcrig runs show` on a live run) made close() raise "database is locked" and the demo
+    # exit 2 after a complete run
+    path = tmp_path / "r.sqlite"
+    rec = RunRecorder(path, COLS, {"plant": "kestrel f3"}, block_rows=64, lossless=True)
+    rows = np.arange(300 * len(COLS), dtype=float).reshape(300, len(COLS))
+    for r in rows:
+        rec.frame(r)
+    reader = open_record(path)
+    assert len(reader.frames()) <= 300  # a live read, as a user would make
+    try:
+        rec.close("complete")  # must not raise
+    finally:
+        reader.close()
+    with open_record(path) as rd:
+        assert rd.status == "complete"
+        assert np.array_equal(rd.frames(), rows)

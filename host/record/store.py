@@ -181,6 +181,7 @@ class RunRecorder:
         self._stop = threading.Event()
         self._space = threading.Event()  # set by the writer after it freed blocks (lossless waits)
         self._closed = False
+        self.wal_left = False  # True when close() could not fold the WAL in (a reader had the file open)
         self.status: str | None = None
         self._writer = threading.Thread(target=self._write_loop, name="dcrig-record-writer", daemon=True)
         self._writer.start()
@@ -279,11 +280,8 @@ class RunRecorder:
                 self._db.execute("INSERT INTO run_end VALUES (1, ?, ?, ?, ?)",
                                  (str(status), _utc_now(), self._done, self._dropped))
                 self._db.execute("COMMIT")
-                # fold the WAL into the main file and leave WAL mode, so record.sqlite alone is
-                # the whole record (no -wal/-shm files beside it, readers create none)
-                self._db.execute("PRAGMA wal_checkpoint(TRUNCATE)")
-                self._db.execute("PRAGMA journal_mode=DELETE")
-                self.status = str(status)
+                self.status = str(status)  # the record is whole and durable from here
+                self._fold_wal()
         except sqlite3.Error as e:
             err = e
         finally:
@@ -293,6 +291,24 @@ class RunRecorder:
             raise RecordError(f"{self.path}: writing the record failed ({err})") from err
         if self._writer.is_alive():
             raise RecordError(f"{self.path}: the record writer did not finish within 30 s")
+
+    def _fold_wal(self) -> None:
+        """Fold the WAL into the main file and leave WAL mode, so record.sqlite alone is the
+        whole record (no -wal/-shm files beside it, readers create none). That needs the file
+        to itself: while a reader has it open (`dcrig runs show` on a live run) SQLite answers
+        "database is locked", and the record then stays in WAL mode, complete and readable
+        (the -wal file beside it holds its last pages). Never a reason to fail the run."""
+        for attempt in range(10):
+            try:
+                self._db.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+                self._db.execute("PRAGMA journal_mode=DELETE")
+                self.wal_left = False
+                return
+            except sqlite3.OperationalError as e:
+                if "locked" not in str(e) and "busy" not in str(e):
+                    raise
+                time.sleep(0.05)  # a reader that is just closing gets half a second
+        self.wal_left = True
 
     def __enter__(self):
         return self
