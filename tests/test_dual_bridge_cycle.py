@@ -98,6 +98,7 @@ def test_the_dual_bridge_cycle_changes_bridges_only_where_torque_reverses(kernel
     # load off (regenerate), settle, stop: three; none at no load, none at rest
     assert new["all"] <= 3 and new["no_load"] == 0 and new["at_rest"] == 0
     assert new["blocked_at_end"] and new["rest_ia_A"] < 1.0
-    assert new["peak_A"] < 2 * 1040.0  # the stand's commutation limit up to base speed
+    # the stand's commutation limit up to base speed: 2 x rated current (common practice, no source)
+    assert new["peak_A"] < 2 * 1040.0
     # the control: the checks fail on the settings before the change
     assert old["all"] >= 6 and old["no_load"] >= 2
