@@ -259,6 +259,17 @@ def _connection(conn, ratio, sign, kh):
     return 1.0, -1.0, 1.0, 0.0, 0.0, 1.0, 1.0, 1.0, 0.0, -1.0, 0.0, 1.0, ks, kh, True
 
 
+@njit(cache=True)
+def _cm(c, v):
+    """v * c for a connection coefficient c that is 0 in some connections.
+
+    Gives -0.0 (not v * 0.0) when c is 0: x + -0.0 is x in IEEE arithmetic, so a build with
+    the connection as a constant drops the term and everything that only fed it, where
+    v * 0.0 must be kept (it is NaN for an infinite v). Only the sign of a zero differs.
+    """
+    return v * c if c != 0.0 else -0.0
+
+
 @njit(cache=True, inline="always")
 def _copper_ohm(r_ref, temp_c, temp_ref_c):
     # IEC 60034-1 resistance/temperature relation for copper
@@ -266,16 +277,17 @@ def _copper_ohm(r_ref, temp_c, temp_ref_c):
 
 
 @njit(cache=True, inline="always")
-def _machine(p, cc, i1, i2, w, ra, rse, rsh, term, vth, rth, lth, di1_forced, vsrc2, loop2_on):
+def _machine(p, cc, i1, i2, w, ra, rse, rsh, term, vth, rth, lth, di1_forced, vsrc2, loop2_on, seg):
     """Loop-current derivatives and algebraic quantities of the machine circuit.
 
-    Returns (di1, di2, vt, ia, ise, immf, emf, kphi, te, vfield).
+    seg: the magnetization segment to try first (the one the last evaluation used).
+    Returns (di1, di2, vt, ia, ise, immf, emf, kphi, te, vfield, seg).
     """
     ca1, ca2, cs1, cs2, ch1, ch2, a1a, a1s, a1h, a2a, a2s, a2h, ks, kh, has2 = cc
-    ia = ca1 * i1 + ca2 * i2
-    ise = cs1 * i1 + cs2 * i2
-    ish = ch1 * i1 + ch2 * i2
-    immf = kh * ish + ks * ise
+    ia = _cm(ca1, i1) + _cm(ca2, i2)
+    ise = _cm(cs1, i1) + _cm(cs2, i2)
+    ish = _cm(ch1, i1) + _cm(ch2, i2)
+    immf = _cm(kh, ish) + _cm(ks, ise)
     iar = reaction_field_A(p, ia)
     if immf >= 0.0:
         ieff = immf - iar
@@ -285,7 +297,7 @@ def _machine(p, cc, i1, i2, w, ra, rse, rsh, term, vth, rth, lth, di1_forced, vs
         ieff = immf + iar
         if ieff > 0.0:
             ieff = 0.0
-    e_c, de = curve_emf(p, ieff)
+    e_c, de, seg = curve_emf(p, ieff, seg)
     kphi = e_c * p[P_MAG_INV_SPEED]
     emf = kphi * w
     lm = p[P_LM0_H] * de * p[P_MAG_INV_SLOPE0]
@@ -298,21 +310,23 @@ def _machine(p, cc, i1, i2, w, ra, rse, rsh, term, vth, rth, lth, di1_forced, vs
     la = p[P_LA_H]
     lse = p[P_LSE_LEAK_H]
     lsh = p[P_LF_LEAK_H]
-    m1 = kh * ch1 + ks * cs1
-    m2 = kh * ch2 + ks * cs2
+    # the connection's coefficients through _cm, so that a specialised build keeps only the
+    # terms its connection has
+    m1 = _cm(ch1, kh) + _cm(cs1, ks)
+    m2 = _cm(ch2, kh) + _cm(cs2, ks)
     # static part and derivative coefficients of each element voltage
     sa = ra * ia + emf + vbr
     ss = rse * ise
     sh = rsh * ish
-    aa1 = la * ca1
-    aa2 = la * ca2
-    as1 = lse * cs1 + ks * lm * m1
-    as2 = lse * cs2 + ks * lm * m2
-    ah1 = lsh * ch1 + kh * lm * m1
-    ah2 = lsh * ch2 + kh * lm * m2
-    r11 = a1a * aa1 + a1s * as1 + a1h * ah1
-    r12 = a1a * aa2 + a1s * as2 + a1h * ah2
-    s1 = a1a * sa + a1s * ss + a1h * sh
+    aa1 = _cm(ca1, la)
+    aa2 = _cm(ca2, la)
+    as1 = _cm(cs1, lse) + _cm(m1, _cm(ks, lm))
+    as2 = _cm(cs2, lse) + _cm(m2, _cm(ks, lm))
+    ah1 = _cm(ch1, lsh) + _cm(m1, _cm(kh, lm))
+    ah2 = _cm(ch2, lsh) + _cm(m2, _cm(kh, lm))
+    r11 = _cm(a1a, aa1) + _cm(a1s, as1) + _cm(a1h, ah1)
+    r12 = _cm(a1a, aa2) + _cm(a1s, as2) + _cm(a1h, ah2)
+    s1 = _cm(a1a, sa) + _cm(a1s, ss) + _cm(a1h, sh)
     # loop 1 row
     if term == TERM_THEVENIN:
         m11 = r11 + lth
@@ -328,21 +342,22 @@ def _machine(p, cc, i1, i2, w, ra, rse, rsh, term, vth, rth, lth, di1_forced, vs
         b1 = di1_forced
     # loop 2 row
     if has2 and loop2_on:
-        m21 = a2a * aa1 + a2s * as1 + a2h * ah1
-        m22 = a2a * aa2 + a2s * as2 + a2h * ah2
-        b2 = vsrc2 - (a2a * sa + a2s * ss + a2h * sh)
+        m21 = _cm(a2a, aa1) + _cm(a2s, as1) + _cm(a2h, ah1)
+        m22 = _cm(a2a, aa2) + _cm(a2s, as2) + _cm(a2h, ah2)
+        b2 = vsrc2 - (_cm(a2a, sa) + _cm(a2s, ss) + _cm(a2h, sh))
     else:
         m21 = 0.0
         m22 = 1.0
         b2 = 0.0
     det = m11 * m22 - m12 * m21
     inv_det = 1.0 / det
-    di1 = (b1 * m22 - m12 * b2) * inv_det
-    di2 = (m11 * b2 - m21 * b1) * inv_det
-    vt = s1 + r11 * di1 + r12 * di2
-    vfield = sh + ah1 * di1 + ah2 * di2
+    # (x - c v written x + v (-c): the same number, and x + -0.0 folds where x - 0.0 * v cannot)
+    di1 = (b1 * m22 + _cm(-m12, b2)) * inv_det
+    di2 = (m11 * b2 + _cm(-m21, b1)) * inv_det
+    vt = s1 + _cm(r11, di1) + _cm(r12, di2)
+    vfield = sh + _cm(ah1, di1) + _cm(ah2, di2)
     te = kphi * ia
-    return di1, di2, vt, ia, ise, immf, emf, kphi, te, vfield
+    return di1, di2, vt, ia, ise, immf, emf, kphi, te, vfield, seg
 
 
 @njit(cache=True, inline="always")
@@ -446,7 +461,7 @@ BR_LOOP = 3  # no DC path, but two devices of one group form a line-to-line loop
 
 @njit(cache=True, inline="always")
 def _stage(p, cc, i1, i2, w, pa, pb, pc, va, vb, vc, ra, rse, rsh, term, vth, rth, lth, di1_forced,
-           vsrc2, loop2_on, br, mech):
+           vsrc2, loop2_on, br, mech, seg):
     """One evaluation of all derivatives: machine loops, bridge line currents, shaft.
 
     br = (bmode, pol, rail0, rail1, rail2, rs, ls); mech = (speed_imposed, load_kind, t_set,
@@ -454,7 +469,8 @@ def _stage(p, cc, i1, i2, w, pa, pb, pc, va, vb, vc, ra, rse, rsh, term, vth, rt
     star-args call, which numba cannot inline.
 
     Returns (di1, di2, dia_line, dib_line, dic_line, dw, vt, ia, ise, immf, emf, kphi, te,
-    vfield, t_load, vth); vth is the Thevenin voltage used (the bridge's when it feeds).
+    vfield, t_load, vth, seg); vth is the Thevenin voltage used (the bridge's when it feeds),
+    seg the magnetization segment (see _machine).
     Passive torques are not in dw: the caller applies them with _passive.
     """
     bmode, pol, rail0, rail1, rail2, rs, ls, inv_ls = br
@@ -467,8 +483,8 @@ def _stage(p, cc, i1, i2, w, pa, pb, pc, va, vb, vc, ra, rse, rsh, term, vth, rt
         up_, un_, kp, kn = _bridge_thevenin(rail0, rail1, rail2, va, vb, vc, pa, pb, pc, rs)
         if bmode == BR_FEEDS:
             vth = pol * (up_ - un_)
-    d1, d2, vt, ia, ise, immf, emf, kphi, te, vfield = _machine(
-        p, cc, i1, i2, w, ra, rse, rsh, term, vth, rth, lth, di1_forced, vsrc2, loop2_on
+    d1, d2, vt, ia, ise, immf, emf, kphi, te, vfield, seg = _machine(
+        p, cc, i1, i2, w, ra, rse, rsh, term, vth, rth, lth, di1_forced, vsrc2, loop2_on, seg
     )
     dpa = 0.0
     dpb = 0.0
@@ -495,7 +511,7 @@ def _stage(p, cc, i1, i2, w, pa, pb, pc, va, vb, vc, ra, rse, rsh, term, vth, rt
     else:
         tl = _load_torque(load_kind, t_set, w, w_rated)
         dw = (te - tf - tl) * inv_j
-    return d1, d2, dpa, dpb, dpc, dw, vt, ia, ise, immf, emf, kphi, te, vfield, tl, vth
+    return d1, d2, dpa, dpb, dpc, dw, vt, ia, ise, immf, emf, kphi, te, vfield, tl, vth, seg
 
 
 def _build(codes):
@@ -511,7 +527,7 @@ def _build(codes):
     IS_BRIDGE = SUPPLY == SUPPLY_BRIDGE or SUPPLY == SUPPLY_DUAL_BRIDGE
     IS_AVERAGED = SUPPLY == SUPPLY_AVERAGED
 
-    @njit(cache=True)
+    @njit(cache=True, _nrt=False)
     def step_frame(x, p, u, y, n_sub):
         """Advance the model n_sub fixed steps of p[P_DT_S] and write the outputs.
 
@@ -675,16 +691,50 @@ def _build(codes):
         dv_passive = dt * t_passive / j_total
         inv_ls = 1.0 / ls if ls > 0.0 else 0.0
         inv_tau_isrc = 1.0 / p[P_ISRC_TAU_S] if p[P_ISRC_TAU_S] > 0.0 else 0.0
+        # DC source (and resistive load) as seen from the terminals: constant within the call
+        dc_term = TERM_OPEN
+        dc_vth = 0.0
+        dc_rth = 0.0
+        r_load = u[U_LOAD_OHM]
+        if contactor:
+            r_src = p[P_DC_SOURCE_OHM]
+            dc_term = TERM_THEVENIN
+            if r_load > 0.0 and r_src > 0.0:
+                g = 1.0 / r_src + 1.0 / r_load
+                dc_vth = u[U_VT_V] / r_src / g
+                dc_rth = 1.0 / g
+            else:
+                dc_vth = u[U_VT_V]
+                dc_rth = r_src
+        elif r_load > 0.0:
+            dc_term = TERM_THEVENIN
+            dc_rth = r_load
         v_field_avg = 0.0
         if not field_ac_dead:
             v_field_avg = SQRT2 / math.pi * p[P_FIELD_VAC_V] * u[U_MAINS_PU] * (1.0 + math.cos(field_alpha))
 
+        # the continuous state lives in locals across the frame and is stored once after it:
+        # numba cannot prove that x, p, u and y do not overlap, so a store to x inside the loop
+        # would make every later read of p a fresh load (and keeps LLVM from hoisting them)
+        st_i1 = x[X_I_LINE_A]
+        st_i2 = x[X_I_FIELD_A]
+        st_w = x[X_SPEED_RAD_S]
+        st_th = x[X_MAINS_ANGLE_RAD]
+        st_t = x[X_TIME_S]
+        st_pa = x[X_PH_I0]
+        st_pb = x[X_PH_I0 + 1]
+        st_pc = x[X_PH_I0 + 2]
+        st_angle = x[X_ANGLE_RAD]
+        st_vint = x[X_PULSE_VINT]
+        st_tpulse = x[X_PULSE_T_S]
+        st_zero_s = x[X_ZERO_CURRENT_S]
+        seg = 0  # magnetization segment of the last evaluation, tried first by the next one
         for _ in range(n_sub):
-            i1 = x[X_I_LINE_A]
-            i2 = x[X_I_FIELD_A]
-            w = x[X_SPEED_RAD_S]
-            th0 = x[X_MAINS_ANGLE_RAD]
-            t_now = x[X_TIME_S]
+            i1 = st_i1
+            i2 = st_i2
+            w = st_w
+            th0 = st_th
+            t_now = st_t
             s1 = s0 * cr + c0 * sr
             c1 = c0 * cr - s0 * sr
             va0, vb0, vc0 = _phase_volts(vpk, s0, c0, rev_seq)
@@ -697,9 +747,9 @@ def _build(codes):
             lth = 0.0
             term = TERM_OPEN
             di1_forced = 0.0
-            pa = x[X_PH_I0]
-            pb = x[X_PH_I0 + 1]
-            pc = x[X_PH_I0 + 2]
+            pa = st_pa
+            pb = st_pb
+            pc = st_pc
             rail0 = 0
             rail1 = 0
             rail2 = 0
@@ -717,7 +767,7 @@ def _build(codes):
                                 conducting = True
                     else:
                         conducting = i1 != 0.0
-                    if active != 0 and (conducting or x[X_ZERO_CURRENT_S] < p[P_DEADTIME_S]):
+                    if active != 0 and (conducting or st_zero_s < p[P_DEADTIME_S]):
                         status |= ST_DEADTIME_VIOLATION
                     if not conducting:
                         x[X_BRIDGE_ACTIVE] = select
@@ -731,10 +781,10 @@ def _build(codes):
                     nat = PI_6 + sec1 * PI_3
                     if True:
                         # per-pulse mean terminal voltage, and the averaged bridge's next voltage
-                        if x[X_PULSE_T_S] > 0.0:
-                            x[X_PULSE_VAVG_V] = x[X_PULSE_VINT] / x[X_PULSE_T_S]
-                        x[X_PULSE_VINT] = 0.0
-                        x[X_PULSE_T_S] = 0.0
+                        if st_tpulse > 0.0:
+                            x[X_PULSE_VAVG_V] = st_vint / st_tpulse
+                        st_vint = 0.0
+                        st_tpulse = 0.0
                         x[X_LATCHED_ALPHA_RAD] = alpha_cmd
                         if fire_ok:
                             x[X_THY_FIRE_AT0 + k] = nat + alpha_cmd
@@ -757,9 +807,6 @@ def _build(codes):
                             x[X_THY_ON0 + k] = 0.0
                             x[X_THY_OFF_S0 + k] = t_now
                     if short_mask == 0:
-                        x[X_PH_I0] = 0.0
-                        x[X_PH_I0 + 1] = 0.0
-                        x[X_PH_I0 + 2] = 0.0
                         pa = 0.0
                         pb = 0.0
                         pc = 0.0
@@ -921,20 +968,9 @@ def _build(codes):
                     term = TERM_FORCED
                     di1_forced = (u[U_IREF_A] - i1) * inv_tau_isrc
             else:
-                r_load = u[U_LOAD_OHM]
-                if contactor:
-                    r_src = p[P_DC_SOURCE_OHM]
-                    term = TERM_THEVENIN
-                    if r_load > 0.0 and r_src > 0.0:
-                        g = 1.0 / r_src + 1.0 / r_load
-                        vth0 = u[U_VT_V] / r_src / g
-                        rth = 1.0 / g
-                    else:
-                        vth0 = u[U_VT_V]
-                        rth = r_src
-                elif r_load > 0.0:
-                    term = TERM_THEVENIN
-                    rth = r_load
+                term = dc_term
+                vth0 = dc_vth
+                rth = dc_rth
                 vth1 = vth0
             if arm_short:
                 term = TERM_THEVENIN
@@ -948,11 +984,9 @@ def _build(codes):
                 if not contactor and abs(i1) > 1e-3 * i_rated:
                     status |= ST_CONTACTOR_BREAK_UNDER_LOAD
                 i1 = 0.0
-                x[X_I_LINE_A] = 0.0
             loop2_on = not field_open
             if not loop2_on:
                 i2 = 0.0
-                x[X_I_FIELD_A] = 0.0
 
             # field supply voltage (separately excited machines only)
             vsrc2 = 0.0
@@ -999,9 +1033,9 @@ def _build(codes):
             vt_start = 0.0
             i1p = i2p = wp = pap = pbp = pcp = 0.0
             for stg in range(2):
-                r1, r2, rpa, rpb, rpc, rw, vt, ia, ise, immf, emf, kphi, te, vfield, tl, rvth = _stage(
+                r1, r2, rpa, rpb, rpc, rw, vt, ia, ise, immf, emf, kphi, te, vfield, tl, rvth, seg = _stage(
                     p, cc, si1, si2, sw, spa, spb, spc, sva, svb, svc, ra, rse, rsh, term, svth, rth, lth, sdf,
-                    svs, loop2_on, br, mech,
+                    svs, loop2_on, br, mech, seg,
                 )
                 if stg == 0:
                     d1, d2, dpa, dpb, dpc, dw, vth0 = r1, r2, rpa, rpb, rpc, rw, rvth
@@ -1044,7 +1078,7 @@ def _build(codes):
                     else:
                         t_act = j_total * (w_free - w) / dt
                         tl2 = t_act * t_set / t_passive if t_passive > 0.0 else 0.0
-            x[X_ANGLE_RAD] += h2 * (w + wn)
+            st_angle += h2 * (w + wn)
             if locked:
                 wn = 0.0
             pan = pa + h2 * (dpa + epa)
@@ -1184,9 +1218,9 @@ def _build(codes):
                             up_q, un_q, kp_q, kn_q = _bridge_thevenin(q0, q1, q2, va1, vb1, vc1, pan, pbn, pcn, rs)
                             lth_q = ls * (1.0 / kp_q + 1.0 / kn_q)
                             vth_q = pol * (up_q - un_q)
-                            r1, r2, rvt, _a, _s, _m, _e, _k, _t, _f = _machine(
+                            r1, r2, rvt, _a, _s, _m, _e, _k, _t, _f, seg = _machine(
                                 p, cc, i1n, i2n, wn, ra, rse, rsh, TERM_THEVENIN, vth_q, rth, lth_q, 0.0,
-                                vsrc2_end, loop2_on,
+                                vsrc2_end, loop2_on, seg,
                             )
                             if ev == 0:
                                 g1, g2, vt_o = r1, r2, rvt
@@ -1222,9 +1256,9 @@ def _build(codes):
                         pcn += dp
                     elif rc_ < 0:
                         pcn += dn
-                x[X_PH_I0] = pan
-                x[X_PH_I0 + 1] = pbn
-                x[X_PH_I0 + 2] = pcn
+                pa = pan
+                pb = pbn
+                pc = pcn
             elif is_avg and term == TERM_THEVENIN and pol * i1n < 0.0:
                 if i1 != 0.0:
                     f_cond = _zero_fraction(i1, i1n, 1.0)
@@ -1235,24 +1269,27 @@ def _build(codes):
             if not loop2_on or (conn == CONN_SEPARATE and field_kind != 0 and i2n < 0.0):
                 i2n = 0.0
             if (is_bridge or is_avg) and (i1n == 0.0):
-                x[X_ZERO_CURRENT_S] += dt
+                st_zero_s += dt
             elif is_bridge or is_avg:
-                x[X_ZERO_CURRENT_S] = 0.0
-            x[X_I_LINE_A] = i1n
-            x[X_I_FIELD_A] = i2n
-            x[X_SPEED_RAD_S] = wn
+                st_zero_s = 0.0
+            st_i1 = i1n
+            st_i2 = i2n
+            st_w = wn
+            st_pa = pa
+            st_pb = pb
+            st_pc = pc
             if i1n == 0.0 and term != TERM_OPEN:
                 # the terminal current stopped in this step: what follows is the open-circuit
                 # voltage (the next turn-on decision compares the bridge against it)
                 term = TERM_OPEN
-                d1, d2, vt, ia, ise, immf, emf, kphi, te, vfield = _machine(
-                    p, cc, 0.0, i2n, wn, ra, rse, rsh, TERM_OPEN, 0.0, 0.0, 0.0, 0.0, vsrc2_end, loop2_on
+                d1, d2, vt, ia, ise, immf, emf, kphi, te, vfield, seg = _machine(
+                    p, cc, 0.0, i2n, wn, ra, rse, rsh, TERM_OPEN, 0.0, 0.0, 0.0, 0.0, vsrc2_end, loop2_on, seg
                 )
             sum_ia2 += ia * ia
-            x[X_MAINS_ANGLE_RAD] = th0 + dtheta
+            st_th = th0 + dtheta
             s0 = s1
             c0 = c1
-            x[X_TIME_S] += dt
+            st_t += dt
             if f_cond < 1.0:
                 # conducting part (trapezoid to the current zero, the voltage taken linear over the
                 # step), then the open-circuit voltage; power flows only in the conducting part
@@ -1262,9 +1299,8 @@ def _build(codes):
             else:
                 vmean = 0.5 * (vt_start + vt) + dv_rest
                 pin = vmean * 0.5 * (i1 + i1n)
-            x[X_PULSE_VINT] += vmean * dt
-            x[X_PULSE_T_S] += dt
-            x[X_VT_V] = vt
+            st_vint += vmean * dt
+            st_tpulse += dt
             sum_vt += vmean
             sum_ia += ia
             sum_te += te
@@ -1273,12 +1309,24 @@ def _build(codes):
             if abs(ia) > peak_ia:
                 peak_ia = abs(ia)
 
+        x[X_I_LINE_A] = st_i1
+        x[X_I_FIELD_A] = st_i2
+        x[X_SPEED_RAD_S] = st_w
+        x[X_MAINS_ANGLE_RAD] = st_th
+        x[X_TIME_S] = st_t
+        x[X_PH_I0] = st_pa
+        x[X_PH_I0 + 1] = st_pb
+        x[X_PH_I0 + 2] = st_pc
+        x[X_ANGLE_RAD] = st_angle
+        x[X_PULSE_VINT] = st_vint
+        x[X_PULSE_T_S] = st_tpulse
+        x[X_ZERO_CURRENT_S] = st_zero_s
         # outputs at the end state (the loop's values belong to the last predictor stage)
         if n_sub > 0:
-            d1, d2, vt, ia, ise, immf, emf, kphi, te, vfield = _machine(
+            d1, d2, vt, ia, ise, immf, emf, kphi, te, vfield, seg = _machine(
                 p, cc, x[X_I_LINE_A], x[X_I_FIELD_A], x[X_SPEED_RAD_S], ra, rse, rsh, term, vth1, rth, lth,
                 (u[U_IREF_A] - x[X_I_LINE_A]) / p[P_ISRC_TAU_S] if term == TERM_FORCED else 0.0,
-                vsrc2_end, loop2_on,
+                vsrc2_end, loop2_on, seg,
             )
             x[X_VT_V] = vt
         # the armature temperature moves over minutes: one Euler step per call on the frame's

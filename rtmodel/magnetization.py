@@ -99,23 +99,30 @@ def pack_curve(p, i_A, e_V, ar_ia_A=(), ar_if_A=(), linear=False):
 
 
 @njit(cache=True, inline="always")
-def _curve_pos(p, i):
-    """E_tab(i) and dE/di for i >= 0."""
+def _curve_pos(p, i, seg):
+    """E_tab(i), dE/di and the segment used, for i >= 0.
+
+    seg is the segment to try first (0 <= seg < n - 1): the one the previous evaluation
+    used, since the excitation moves far less than a segment per step; a miss searches.
+    """
     n = int(p[P_MAG_N])
     last = n - 1
     i_last = p[P_MAG_I0 + last]
     if i >= i_last:
         slope = p[P_MAG_D0 + last]
-        return p[P_MAG_E0 + last] + slope * (i - i_last), slope
-    # binary search for segment k with i_k <= i < i_{k+1}
-    lo = 0
-    hi = last
-    while hi - lo > 1:
-        mid = (lo + hi) >> 1
-        if p[P_MAG_I0 + mid] <= i:
-            lo = mid
-        else:
-            hi = mid
+        return p[P_MAG_E0 + last] + slope * (i - i_last), slope, seg
+    lo = seg
+    hi = seg + 1
+    if not (p[P_MAG_I0 + lo] <= i and i < p[P_MAG_I0 + hi]):
+        # binary search for segment k with i_k <= i < i_{k+1}
+        lo = 0
+        hi = last
+        while hi - lo > 1:
+            mid = (lo + hi) >> 1
+            if p[P_MAG_I0 + mid] <= i:
+                lo = mid
+            else:
+                hi = mid
     x0 = p[P_MAG_I0 + lo]
     h = p[P_MAG_I0 + hi] - x0
     inv_h = p[P_MAG_INVH0 + lo]
@@ -124,7 +131,7 @@ def _curve_pos(p, i):
     if p[P_MAG_LINEAR] > 0.5:
         # straight lines between the points, as a hand calculation reads a curve
         slope_seg = (y1 - y0) * inv_h
-        return y0 + slope_seg * (i - x0), slope_seg
+        return y0 + slope_seg * (i - x0), slope_seg, lo
     d0 = p[P_MAG_D0 + lo]
     d1 = p[P_MAG_D0 + hi]
     t = (i - x0) * inv_h
@@ -141,26 +148,28 @@ def _curve_pos(p, i):
     g01 = (-6.0 * t2 + 6.0 * t) * inv_h
     g11 = 3.0 * t2 - 2.0 * t
     de = g00 * y0 + g10 * d0 + g01 * y1 + g11 * d1
-    return e, de
+    return e, de, lo
 
 
 @njit(cache=True, inline="always")
-def curve_emf(p, i):
+def curve_emf(p, i, seg):
     """Open-circuit EMF at the curve speed for net excitation i (curve-winding amperes).
 
-    Returns (E_V, dE_di_V_per_A). Monotone in i for every i; see the module docstring.
+    seg: the table segment to try first (see _curve_pos; 0 when unknown).
+    Returns (E_V, dE_di_V_per_A, segment used). Monotone in i for every i; see the module
+    docstring.
     """
     # one lookup for both signs: each inlined copy of the lookup costs compile time, and the
     # kernel inlines this function at every machine evaluation
-    e, de = _curve_pos(p, abs(i))
+    e, de, seg = _curve_pos(p, abs(i), seg)
     if i >= 0.0:
-        return e, de
+        return e, de, seg
     e_res = p[P_MAG_E0]
     i1 = p[P_MAG_I0 + 1]
     fade = 1.0 + i / i1
     if fade > 0.0:
-        return -e + 2.0 * e_res * fade, de + 2.0 * e_res / i1
-    return -e, de
+        return -e + 2.0 * e_res * fade, de + 2.0 * e_res / i1, seg
+    return -e, de, seg
 
 
 @njit(cache=True, inline="always")
@@ -188,4 +197,5 @@ def reaction_field_A(p, ia):
 
 def curve_emf_py(p, i):
     """Python-callable wrapper (for op-point solvers and tests)."""
-    return curve_emf(p, float(i))
+    e, de, _ = curve_emf(p, float(i), 0)
+    return e, de
