@@ -729,6 +729,11 @@ def _build(codes):
         st_tpulse = x[X_PULSE_T_S]
         st_zero_s = x[X_ZERO_CURRENT_S]
         seg = 0  # magnetization segment of the last evaluation, tried first by the next one
+        # the conducting thyristors as a bit mask (bit k: T_k+1), stored back after the loop
+        on = 0
+        for k in range(6):
+            if x[X_THY_ON0 + k] > 0.5:
+                on |= 1 << k
         for _ in range(n_sub):
             i1 = st_i1
             i2 = st_i2
@@ -763,7 +768,7 @@ def _build(codes):
                     if is_bridge:
                         conducting = False
                         for k in range(6):
-                            if x[X_THY_ON0 + k] > 0.5:
+                            if (on >> k) & 1:
                                 conducting = True
                     else:
                         conducting = i1 != 0.0
@@ -803,8 +808,8 @@ def _build(codes):
                 if is_bridge and not contactor and not arm_short:
                     # the open contactor breaks the DC circuit: the bridge current is zero
                     for k in range(6):
-                        if x[X_THY_ON0 + k] > 0.5 and not (short_mask >> k) & 1:
-                            x[X_THY_ON0 + k] = 0.0
+                        if (on >> k) & 1 and not (short_mask >> k) & 1:
+                            on &= ~(1 << k)
                             x[X_THY_OFF_S0 + k] = t_now
                     if short_mask == 0:
                         pa = 0.0
@@ -832,19 +837,19 @@ def _build(codes):
                     # shorted thyristors conduct regardless of gate
                     for k in range(6):
                         if (short_mask >> k) & 1 and not (open_mask >> _THY_PHASE[k]) & 1:
-                            x[X_THY_ON0 + k] = 1.0
+                            on |= 1 << k
                     # turn-on: gated (or recovering) and forward biased
                     for ph in range(3):
                         ku = _UPPER_OF_PHASE[ph]
                         kl = _LOWER_OF_PHASE[ph]
-                        if x[X_THY_ON0 + ku] > 0.5:
+                        if (on >> ku) & 1:
                             if ph == 0:
                                 rail0 = 1
                             elif ph == 1:
                                 rail1 = 1
                             else:
                                 rail2 = 1
-                        elif x[X_THY_ON0 + kl] > 0.5:
+                        elif (on >> kl) & 1:
                             if ph == 0:
                                 rail0 = -1
                             elif ph == 1:
@@ -858,7 +863,7 @@ def _build(codes):
                         vdc_open = 0.0
                     if conducting:
                         for k in range(6):
-                            if x[X_THY_ON0 + k] > 0.5:
+                            if (on >> k) & 1:
                                 continue
                             gated = x[X_THY_GATE0 + k] > th0
                             recovering = t_now - x[X_THY_OFF_S0 + k] < tq
@@ -876,7 +881,7 @@ def _build(codes):
                                 partner = _UPPER_OF_PHASE[ph]
                             if fwd <= 0.0:
                                 continue
-                            if x[X_THY_ON0 + partner] > 0.5:
+                            if (on >> partner) & 1:
                                 # both devices of one leg: a shorted device makes it a DC-side
                                 # short; otherwise the load would freewheel through the leg, which
                                 # this model does not represent: it keeps this device off and says so
@@ -887,7 +892,7 @@ def _build(codes):
                                 continue
                             if not gated:
                                 status |= ST_COMMUTATION_FAILURE
-                            x[X_THY_ON0 + k] = 1.0
+                            on |= 1 << k
                             if _THY_UPPER[k] == 1:
                                 x[X_LAST_FIRED_UP] = k
                             else:
@@ -898,14 +903,14 @@ def _build(codes):
                         bu = -1
                         bl = -1
                         for ku_ in (0, 2, 4):
-                            if x[X_THY_GATE0 + ku_] <= th0 and x[X_THY_ON0 + ku_] < 0.5:
+                            if x[X_THY_GATE0 + ku_] <= th0 and not (on >> ku_) & 1:
                                 continue
                             phu = _THY_PHASE[ku_]
                             if (open_mask >> phu) & 1:
                                 continue
                             vu = va0 if phu == 0 else (vb0 if phu == 1 else vc0)
                             for kl_ in (1, 3, 5):
-                                if x[X_THY_GATE0 + kl_] <= th0 and x[X_THY_ON0 + kl_] < 0.5:
+                                if x[X_THY_GATE0 + kl_] <= th0 and not (on >> kl_) & 1:
                                     continue
                                 phl = _THY_PHASE[kl_]
                                 if phl == phu or (open_mask >> phl) & 1:
@@ -919,9 +924,9 @@ def _build(codes):
                         if bu >= 0 and (contactor or arm_short):
                             for k in range(6):
                                 if (short_mask >> k) & 1 == 0:
-                                    x[X_THY_ON0 + k] = 0.0
-                            x[X_THY_ON0 + bu] = 1.0
-                            x[X_THY_ON0 + bl] = 1.0
+                                    on &= ~(1 << k)
+                            on |= 1 << bu
+                            on |= 1 << bl
                             x[X_LAST_FIRED_UP] = bu
                             x[X_LAST_FIRED_LOW] = bl
                     rail0 = 0
@@ -929,9 +934,9 @@ def _build(codes):
                     rail2 = 0
                     for ph in range(3):
                         r = 0
-                        if x[X_THY_ON0 + _UPPER_OF_PHASE[ph]] > 0.5:
+                        if (on >> _UPPER_OF_PHASE[ph]) & 1:
                             r = 1
-                        elif x[X_THY_ON0 + _LOWER_OF_PHASE[ph]] > 0.5:
+                        elif (on >> _LOWER_OF_PHASE[ph]) & 1:
                             r = -1
                         if ph == 0:
                             rail0 = r
@@ -1033,7 +1038,9 @@ def _build(codes):
             vt_start = 0.0
             i1p = i2p = wp = pap = pbp = pcp = 0.0
             for stg in range(2):
-                r1, r2, rpa, rpb, rpc, rw, vt, ia, ise, immf, emf, kphi, te, vfield, tl, rvth, seg = _stage(
+                # (ise, immf, emf, kphi, vfield: outputs only, taken from the frame-end evaluation,
+                # so they are not kept here and their arithmetic is dropped)
+                r1, r2, rpa, rpb, rpc, rw, vt, ia, _ise, _immf, _emf, _kphi, te, _vf, tl, rvth, seg = _stage(
                     p, cc, si1, si2, sw, spa, spb, spc, sva, svb, svc, ra, rse, rsh, term, svth, rth, lth, sdf,
                     svs, loop2_on, br, mech, seg,
                 )
@@ -1056,12 +1063,7 @@ def _build(codes):
                     e1, e2, epa, epb, epc, dw2, vth1 = r1, r2, rpa, rpb, rpc, rw, rvth
             vt2 = vt
             ia2 = ia
-            ise2 = ise
-            immf2 = immf
-            emf2 = emf
-            kphi2 = kphi
             te2 = te
-            vfield2 = vfield
             tl2 = tl
             h2 = 0.5 * dt
             i1n = i1 + h2 * (d1 + e1)
@@ -1086,12 +1088,7 @@ def _build(codes):
             pcn = pc + h2 * (dpc + epc)
             vt = vt2
             ia = ia2
-            ise = ise2
-            immf = immf2
-            emf = emf2
-            kphi = kphi2
             te = te2
-            vfield = vfield2
             tl = tl2
 
             # ---------------- after the step: thyristor turn-off, clamps, bookkeeping
@@ -1119,7 +1116,7 @@ def _build(codes):
                     if r > 0:
                         ku = _UPPER_OF_PHASE[ph]
                         if cur <= 0.0 and not (short_mask >> ku) & 1:
-                            x[X_THY_ON0 + ku] = 0.0
+                            on &= ~(1 << ku)
                             x[X_THY_OFF_S0 + ku] = t_now + dt
                             r = 0
                             if oldi[ph] > 0.0:
@@ -1129,7 +1126,7 @@ def _build(codes):
                     elif r < 0:
                         kl = _LOWER_OF_PHASE[ph]
                         if cur >= 0.0 and not (short_mask >> kl) & 1:
-                            x[X_THY_ON0 + kl] = 0.0
+                            on &= ~(1 << kl)
                             x[X_THY_OFF_S0 + kl] = t_now + dt
                             r = 0
                             if oldi[ph] < 0.0:
@@ -1160,15 +1157,15 @@ def _build(codes):
                     # one group emptied: the DC current is zero; devices that are not shorted go
                     # off, and only a loop of two shorted/conducting phases in one group carries on
                     for k in range(6):
-                        if x[X_THY_ON0 + k] > 0.5 and not (short_mask >> k) & 1:
-                            x[X_THY_ON0 + k] = 0.0
+                        if (on >> k) & 1 and not (short_mask >> k) & 1:
+                            on &= ~(1 << k)
                             x[X_THY_OFF_S0 + k] = t_now + dt
                     n_up = 0
                     n_low = 0
                     for ph in range(3):
-                        if x[X_THY_ON0 + _UPPER_OF_PHASE[ph]] > 0.5:
+                        if (on >> _UPPER_OF_PHASE[ph]) & 1:
                             n_up += 1
-                        elif x[X_THY_ON0 + _LOWER_OF_PHASE[ph]] > 0.5:
+                        elif (on >> _LOWER_OF_PHASE[ph]) & 1:
                             n_low += 1
                     if n_up < 2 and n_low < 2:
                         pan = 0.0
@@ -1176,11 +1173,11 @@ def _build(codes):
                         pcn = 0.0
                     else:
                         # keep the loop's KCL exact: the two line currents are equal and opposite
-                        if x[X_THY_ON0 + _UPPER_OF_PHASE[0]] + x[X_THY_ON0 + _LOWER_OF_PHASE[0]] < 0.5:
+                        if not ((on >> _UPPER_OF_PHASE[0]) | (on >> _LOWER_OF_PHASE[0])) & 1:
                             pan = 0.0
-                        if x[X_THY_ON0 + _UPPER_OF_PHASE[1]] + x[X_THY_ON0 + _LOWER_OF_PHASE[1]] < 0.5:
+                        if not ((on >> _UPPER_OF_PHASE[1]) | (on >> _LOWER_OF_PHASE[1])) & 1:
                             pbn = 0.0
-                        if x[X_THY_ON0 + _UPPER_OF_PHASE[2]] + x[X_THY_ON0 + _LOWER_OF_PHASE[2]] < 0.5:
+                        if not ((on >> _UPPER_OF_PHASE[2]) | (on >> _LOWER_OF_PHASE[2])) & 1:
                             pcn = 0.0
                         res = (pan + pbn + pcn) / (n_up + n_low)
                         if pan != 0.0:
@@ -1282,7 +1279,7 @@ def _build(codes):
                 # the terminal current stopped in this step: what follows is the open-circuit
                 # voltage (the next turn-on decision compares the bridge against it)
                 term = TERM_OPEN
-                d1, d2, vt, ia, ise, immf, emf, kphi, te, vfield, seg = _machine(
+                d1, d2, vt, ia, _ise, _immf, _emf, _kphi, te, _vf, seg = _machine(
                     p, cc, 0.0, i2n, wn, ra, rse, rsh, TERM_OPEN, 0.0, 0.0, 0.0, 0.0, vsrc2_end, loop2_on, seg
                 )
             sum_ia2 += ia * ia
@@ -1321,6 +1318,8 @@ def _build(codes):
         x[X_PULSE_VINT] = st_vint
         x[X_PULSE_T_S] = st_tpulse
         x[X_ZERO_CURRENT_S] = st_zero_s
+        for k in range(6):
+            x[X_THY_ON0 + k] = 1.0 if (on >> k) & 1 else 0.0
         # outputs at the end state (the loop's values belong to the last predictor stage)
         if n_sub > 0:
             d1, d2, vt, ia, ise, immf, emf, kphi, te, vfield, seg = _machine(
@@ -1343,10 +1342,7 @@ def _build(codes):
                 finite = False
         if not finite:
             status |= ST_NONFINITE
-        cmask = 0
-        for k in range(6):
-            if x[X_THY_ON0 + k] > 0.5:
-                cmask |= 1 << k
+        cmask = on
         n = float(n_sub) if n_sub > 0 else 1.0
         y[Y_TIME_S] = x[X_TIME_S]
         y[Y_VT_V] = vt

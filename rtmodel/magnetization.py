@@ -98,42 +98,47 @@ def pack_curve(p, i_A, e_V, ar_ia_A=(), ar_if_A=(), linear=False):
         p[P_AR_IF0 : P_AR_IF0 + m] = ar_if_A
 
 
+_U = np.uint64  # an index type numba does not wrap around
+
+
 @njit(cache=True, inline="always")
 def _curve_pos(p, i, seg):
     """E_tab(i), dE/di and the segment used, for i >= 0.
 
     seg is the segment to try first (0 <= seg < n - 1): the one the previous evaluation
     used, since the excitation moves far less than a segment per step; a miss searches.
+    Table indices go through _U (unsigned): numba then leaves out its negative-index
+    wraparound, three instructions per load.
     """
     n = int(p[P_MAG_N])
     last = n - 1
-    i_last = p[P_MAG_I0 + last]
+    i_last = p[_U(P_MAG_I0 + last)]
     if i >= i_last:
-        slope = p[P_MAG_D0 + last]
-        return p[P_MAG_E0 + last] + slope * (i - i_last), slope, seg
+        slope = p[_U(P_MAG_D0 + last)]
+        return p[_U(P_MAG_E0 + last)] + slope * (i - i_last), slope, seg
     lo = seg
     hi = seg + 1
-    if not (p[P_MAG_I0 + lo] <= i and i < p[P_MAG_I0 + hi]):
+    if not (p[_U(P_MAG_I0 + lo)] <= i and i < p[_U(P_MAG_I0 + hi)]):
         # binary search for segment k with i_k <= i < i_{k+1}
         lo = 0
         hi = last
         while hi - lo > 1:
             mid = (lo + hi) >> 1
-            if p[P_MAG_I0 + mid] <= i:
+            if p[_U(P_MAG_I0 + mid)] <= i:
                 lo = mid
             else:
                 hi = mid
-    x0 = p[P_MAG_I0 + lo]
-    h = p[P_MAG_I0 + hi] - x0
-    inv_h = p[P_MAG_INVH0 + lo]
-    y0 = p[P_MAG_E0 + lo]
-    y1 = p[P_MAG_E0 + hi]
+    x0 = p[_U(P_MAG_I0 + lo)]
+    h = p[_U(P_MAG_I0 + hi)] - x0
+    inv_h = p[_U(P_MAG_INVH0 + lo)]
+    y0 = p[_U(P_MAG_E0 + lo)]
+    y1 = p[_U(P_MAG_E0 + hi)]
     if p[P_MAG_LINEAR] > 0.5:
         # straight lines between the points, as a hand calculation reads a curve
         slope_seg = (y1 - y0) * inv_h
         return y0 + slope_seg * (i - x0), slope_seg, lo
-    d0 = p[P_MAG_D0 + lo]
-    d1 = p[P_MAG_D0 + hi]
+    d0 = p[_U(P_MAG_D0 + lo)]
+    d1 = p[_U(P_MAG_D0 + hi)]
     t = (i - x0) * inv_h
     t2 = t * t
     t3 = t2 * t
