@@ -1296,8 +1296,10 @@ def _build(codes):
             else:
                 vmean = 0.5 * (vt_start + vt) + dv_rest
                 pin = vmean * 0.5 * (i1 + i1n)
-            st_vint += vmean * dt
-            st_tpulse += dt
+            if is_bridge or is_avg:
+                # the per-pulse mean (only a bridge has pulses; it latches at each commutation)
+                st_vint += vmean * dt
+                st_tpulse += dt
             sum_vt += vmean
             sum_ia += ia
             sum_te += te
