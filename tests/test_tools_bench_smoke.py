@@ -119,6 +119,11 @@ def test_both_benchmarks_print_their_tables(kernel):
     for target in ("lockstep >= 80% of the echo rate", "host work per frame p99 < 100 us",
                    "no deadline miss at 1 kHz"):
         assert re.search(rf"target {re.escape(target)}.*-> (MET|NOT MET)", out_l), target
+    # issue 12's lean path: a verdict, and where it is not met, the kernel's measured share
+    lean = re.search(r"target \(issue 12\) lean real-time path p99 <= 50 us.*-> (MET|NOT MET)(.*)", out_l)
+    assert lean, out_l
+    if lean.group(1) == "NOT MET":
+        assert re.search(r"the kernel call \d+ us", lean.group(2)), lean.group(0)
 
 
 def test_bad_options_give_one_line_and_status_2():
