@@ -8,7 +8,8 @@ names. Must never import rtmodel, serial or numba.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+import operator
+from dataclasses import dataclass, field, fields
 
 # Armature command mode (what `armature_cmd` means)
 MODE_FIRING_ANGLE = 0  # armature_cmd is the firing angle in degrees
@@ -71,6 +72,14 @@ class Feedback:
     op_run: int = 0  # operator inputs as a PLC would send them
     op_stop: int = 0
     op_speed_ref_rpm: float = 0.0
+
+
+_FEEDBACK_FIELDS = operator.attrgetter(*(f.name for f in fields(Feedback)))
+
+
+def copy_feedback(fb: Feedback) -> Feedback:
+    """A copy of fb, six times faster than copy.copy (which goes through __reduce_ex__)."""
+    return Feedback(*_FEEDBACK_FIELDS(fb))
 
 
 @dataclass(slots=True)

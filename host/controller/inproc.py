@@ -15,7 +15,6 @@ SAFETY: as for the emulated controller - a test-bench emulation, never a safety 
 
 from __future__ import annotations
 
-import copy
 
 from host import signals as sig
 from host.controller.drive import DriveController
@@ -55,7 +54,7 @@ class InProcSession:
     def send_feedback(self, fb: sig.Feedback) -> int:
         seq = fb.seq = self._tx_seq
         self._tx_seq = (seq + 1) & 0xFFFF
-        self._fb = copy.copy(fb)  # the loop reuses its Feedback object
+        self._fb = sig.copy_feedback(fb)  # the loop reuses its Feedback object
         return seq
 
     def recv_command(self, timeout_s: float = 0.0) -> sig.Command | None:
