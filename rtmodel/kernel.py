@@ -4,8 +4,9 @@ Owns the one body of equations, the frame kernel f(x, p, u, y, n_sub), and its b
 `step_frame` (generic: connection, supply, field supply and load read from p at run time) and
 `kernel_for(p)` (specialised: those four codes compile-time constants, so numba drops every
 other case's code and LLVM folds the connection's 0/1 coefficients; same results to rounding).
-Everything else here is inlined into the kernel. Must never import host or do I/O; it
-allocates nothing and never raises: abnormal conditions set ST_* bits in y[Y_STATUS].
+Everything else here is inlined into the kernel (by numba, or for the tiny _cm by LLVM). Must
+never import host or do I/O; it allocates nothing (so it is compiled without numba's reference
+counting, _nrt=False) and never raises: abnormal conditions set ST_* bits in y[Y_STATUS].
 
 Electrical model (motor convention: i_line flows into the + terminal, power in = vt * i_line)
 --------------------------------------------------------------------------------------------
