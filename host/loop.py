@@ -84,7 +84,7 @@ class LoopStats:
 def warm_kernel(plant: Plant) -> float:
     """Compile (first run) or load (cached) the step kernel before any deadline runs.
 
-    Returns the seconds it took. The first call on a fresh machine compiles for 30-60 s; a
+    Returns the seconds it took. The first call on a fresh machine compiles for 15-30 s; a
     controller waiting for the handshake must not be started before this returns.
     """
     import time as _time

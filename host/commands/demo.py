@@ -84,7 +84,7 @@ def _do_demo(args):
     run_dir = new_run_dir(out.parent, out.name)  # before the compile: a bad folder is refused first
     try:
         print(SAFETY + "\n")
-        print("loading the model kernel (the first run on a machine compiles it: 30-60 s) ...", flush=True)
+        print("loading the model kernel (the first run on a machine compiles it: 15-30 s, longer on a busy machine) ...", flush=True)
         took = warm_kernel(plant)
         if took > 2.0:
             print(f"compiled in {took:.0f} s; later runs load it from the cache")
