@@ -15,7 +15,6 @@ SAFETY: as for the emulated controller - a test-bench emulation, never a safety 
 
 from __future__ import annotations
 
-
 from host import signals as sig
 from host.controller.drive import DriveController
 
