@@ -133,3 +133,25 @@ def test_bad_options_give_one_line_and_status_2():
         assert rc == 2, (script, out, err)
         lines = err.strip().splitlines()
         assert len(lines) == 1 and lines[0].startswith("error: ") and "Traceback" not in err, (script, err)
+
+
+def test_fast_path_breakdown_times_the_parts_and_restores_the_classes(kernel):
+    # tools/bench_suite.py times the kernel and the emulated controller of in-process runs by
+    # wrapping Plant.kernel and DriveController.step; the parts must fit inside the frame,
+    # and the wrappers must be gone afterwards (later runs in this process stay untimed)
+    sys.path.insert(0, str(ROOT / "tools"))
+    try:
+        import bench_suite
+    finally:
+        sys.path.pop(0)
+    from host.controller.drive import DriveController
+    from host.params import Plant
+
+    kernel_before, step_before = Plant.kernel, DriveController.step
+    r = bench_suite.fast_path_breakdown(str(ROOT / "configs" / "scenarios" / "f3_shorted_thyristor.toml"), repeats=1)
+    assert Plant.kernel is kernel_before and DriveController.step is step_before
+    plain, timed = r["plain"], r["timed"]
+    assert plain["frames"] == timed["frames"] > 100
+    assert plain["kernel_us"] == plain["controller_us"] == 0.0  # the plain runs are not timed
+    assert 0.0 < timed["kernel_us"] and 0.0 < timed["controller_us"]
+    assert timed["kernel_us"] + timed["controller_us"] < timed["frame_us"]
