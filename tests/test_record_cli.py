@@ -287,7 +287,7 @@ def test_ctrl_c_on_a_scenario_says_where_the_record_is(kernel, tmp_path):
     scn.write_text(f"""
 [scenario]
 name = "long_run"
-duration_s = 120.0
+duration_s = 600.0
 [plant]
 machine = "{(cfg / 'machines' / 'kestrel_f3_stand.toml').as_posix()}"
 converter = "{(cfg / 'converters' / 'kestrel_f3_bridge.toml').as_posix()}"
