@@ -4,7 +4,8 @@ Checks: exit status 0 (every scenario as expected, the mis-set controller's scen
 the JUnit XML parsed back with an independent reader (junitparser) and counted, the HTML page
 self-contained (its plots embedded), a baseline saved and then an injected regression (a
 field-loss protection 10 ms slower, still inside its expectation) reported with exit 1. Also
-the in-process controller against the process-over-pty path, frame for frame.
+the in-process controller against the process-over-pty path, frame for frame, on the demo
+plant's start-stop cycle and two fault scenarios.
 """
 
 from __future__ import annotations
@@ -98,23 +99,44 @@ def test_injected_regression_is_reported_and_fails_the_suite(demo_run, tmp_path)
     assert "1/1 as expected, 1 regression(s)" in r.stdout  # it still passes its expectation
 
 
-def test_inproc_controller_matches_the_process_over_pty(kernel):
+# the demo plant's start-stop cycle and two fault scenarios that trip (phase loss: code 7,
+# armature short: code 1); measured worst cases 2026-12-03 in the comments beside each bound
+INPROC_VS_PROCESS = ("f3_start_stop", "f3_phase_loss", "f3_armature_short")
+
+
+@pytest.mark.parametrize("name", INPROC_VS_PROCESS)
+def test_inproc_controller_matches_the_process_over_pty(kernel, name):
     """Same scenario, the emulated controller in-process and as a separate process on a virtual
-    cable. The link's fixed-point encoding (0.01 A, 0.01 V, 0.001 deg ... docs/protocol.md) rounds
-    what the process sees, so frames agree to a tolerance, not bit for bit."""
+    cable, frame for frame. The link's fixed-point encoding (0.01 A, 0.01 V, 0.01 deg in the
+    command ... docs/protocol.md) rounds what the process sees, so frames agree to a tolerance,
+    not bit for bit. Bounds are in rated units of the F3 stand (500 r/min, 1040 A, 18 A field).
+    The current bound is the loosest: at light load near the edge of continuous conduction the
+    current loop limit-cycles by about +-25 A, and rounding shifts the cycle's phase (worst
+    frame 45 A on the start-stop cycle, median 11 A); the median bound keeps it sharp."""
     from host.scenario import load_scenario
     from host.scenario.run import run_scenario
 
-    scn = load_scenario(ROOT / "configs" / "scenarios" / "f3_phase_loss.toml")
+    scn = load_scenario(ROOT / "configs" / "scenarios" / f"{name}.toml")
     a = run_scenario(scn)
     b = run_scenario(replace(scn, controller_kind="process"))
     assert a.frames.shape == b.frames.shape
     col = {c: k for k, c in enumerate(a.columns)}
-    for name, tol in (("speed_rpm", 0.5), ("armature_current_A", 25.0), ("firing_angle_deg", 1.0),
-                      ("field_current_A", 0.05)):
-        d = np.max(np.abs(a.frames[:, col[name]] - b.frames[:, col[name]]))
-        assert d <= tol, (name, d)
-    # the same trip, in the same frame
-    ka = np.argmax(a.frames[:, col["controller_trip"]] > 0)
-    kb = np.argmax(b.frames[:, col["controller_trip"]] > 0)
-    assert ka == kb and a.frames[ka, col["trip_code"]] == b.frames[kb, col["trip_code"]] == 7
+
+    def diff(column):
+        return np.abs(a.frames[:, col[column]] - b.frames[:, col[column]])
+
+    for column, tol in (("speed_rpm", 1.0),             # 0.2 % of rated (worst measured 0.39)
+                        ("armature_current_A", 75.0),   # 7 % of rated (worst measured 45.5)
+                        ("firing_angle_deg", 1.5),      # (worst measured 0.50)
+                        ("field_current_A", 0.01)):     # (worst measured 0.0004)
+        assert diff(column).max() <= tol, (column, diff(column).max())
+    assert np.median(diff("armature_current_A")) <= 21.0  # 2 % of rated (measured 11)
+    # the same bridge in every frame, and the same trip with the same code in the same frame
+    for column in ("bridge_select", "controller_trip", "trip_code"):
+        assert np.array_equal(a.frames[:, col[column]], b.frames[:, col[column]]), column
+    tripped = a.frames[:, col["controller_trip"]] > 0
+    expected_code = {"f3_start_stop": None, "f3_phase_loss": 7, "f3_armature_short": 1}[name]
+    if expected_code is None:
+        assert not tripped.any()
+    else:
+        assert tripped.any() and a.frames[np.argmax(tripped), col["trip_code"]] == expected_code
